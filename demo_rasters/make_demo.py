@@ -1,0 +1,93 @@
+"""Regenerate the demo scenario: pond-breeding amphibians in a farmland valley cut by a road.
+
+Everything here is invented for demonstration; none of it describes a real place.
+The landscape is 240 x 320 cells of 25 m (6 x 8 km) in ETRS89 / UTM zone 32N.
+
+Resistance per metre of travel (invented, for illustration only):
+woodland 1, hedgerows and stream banks 2, pasture 4, arable 10,
+farmyards and villages 40, the road 150. Ponds are the patches.
+
+Run:  python demo_rasters/make_demo.py   (writes next to this script)
+"""
+
+from pathlib import Path
+
+import numpy as np
+import rasterio
+from rasterio.transform import from_origin
+from scipy import ndimage
+
+HERE = Path(__file__).resolve().parent
+ROWS, COLS, CELL = 240, 320, 25.0
+TRANSFORM = from_origin(500_000.0, 5_300_000.0, CELL, CELL)
+CRS = "EPSG:25832"
+SEED = 20261202
+
+
+def landscape(seed=SEED):
+    rng = np.random.default_rng(seed)
+    rows, cols = np.mgrid[0:ROWS, 0:COLS]
+    # valley floor runs west-east; the stream meanders along it
+    stream_row = 120 + 18 * np.sin(cols / 37.0) + 6 * np.sin(cols / 11.0)
+    dist_stream = np.abs(rows - stream_row)
+    # fields: a mosaic of rectangles, pasture near the stream, arable on the slopes
+    field_id = (rows // 20) * 100 + (cols // 24)
+    field_draw = rng.random(field_id.max() + 1)[field_id]
+    resistance = np.where(field_draw < np.clip(1.1 - dist_stream / 80, 0.2, 0.9), 4.0, 10.0)
+    # woodland blobs on the valley sides
+    noise = ndimage.gaussian_filter(rng.standard_normal((ROWS, COLS)), 9)
+    woodland = (noise > np.quantile(noise, 0.82)) & (dist_stream > 25)
+    resistance[woodland] = 1.0
+    # hedgerows on some field edges
+    hedge = ((rows % 20 == 0) | (cols % 24 == 0)) & (field_draw > 0.45)
+    resistance[hedge & ~woodland] = 2.0
+    # stream banks
+    resistance[dist_stream < 2.5] = 2.0
+    # two villages
+    for r0, c0 in ((70, 60), (175, 250)):
+        village = (rows - r0) ** 2 / 12**2 + (cols - c0) ** 2 / 16**2 < 1
+        resistance[village] = 40.0
+    # the road: crosses the valley from north-west to south-east, 2 cells wide
+    road_col = 40 + rows * 0.9 + 10 * np.sin(rows / 30.0)
+    road = np.abs(cols - road_col) < 1.0
+    resistance[road] = 150.0
+    # a quarry outside the landscape (nodata)
+    quarry = (rows - 25) ** 2 / 9**2 + (cols - 285) ** 2 / 14**2 < 1
+    resistance[quarry] = np.nan
+    return resistance, road, dist_stream
+
+
+def ponds(resistance, seed=SEED):
+    rng = np.random.default_rng(seed + 1)
+    centres = [(40, 30), (95, 110), (150, 40), (205, 95), (60, 200), (130, 175),
+               (190, 215), (105, 290), (215, 300), (30, 130)]
+    rows, cols = np.mgrid[0:ROWS, 0:COLS]
+    labels = np.zeros((ROWS, COLS), dtype=np.uint8)
+    population = np.zeros((ROWS, COLS), dtype=np.float32)
+    for pond, (r0, c0) in enumerate(centres, start=1):
+        radius = rng.uniform(1.5, 3.5)
+        cells = ((rows - r0) ** 2 + (cols - c0) ** 2 <= radius**2) & np.isfinite(resistance)
+        labels[cells] = pond
+        population[cells] = rng.uniform(5, 40)     # adults per cell
+    return labels, population
+
+
+def write(name, array, dtype, nodata):
+    profile = {"driver": "GTiff", "height": ROWS, "width": COLS, "count": 1, "dtype": dtype,
+               "crs": CRS, "transform": TRANSFORM, "nodata": nodata, "compress": "deflate"}
+    data = np.where(np.isnan(array), nodata, array) if np.issubdtype(np.asarray(array).dtype, np.floating) else array
+    with rasterio.open(HERE / name, "w", **profile) as dst:
+        dst.write(data.astype(dtype), 1)
+
+
+def main():
+    resistance, road, _ = landscape()
+    labels, population = ponds(resistance)
+    write("resistance.tif", resistance, "float32", -9999.0)
+    write("ponds.tif", labels, "uint8", 0)
+    write("pond_population.tif", population, "float32", -9999.0)
+    print(f"wrote demo rasters to {HERE}")
+
+
+if __name__ == "__main__":
+    main()

@@ -1,0 +1,51 @@
+"""landflow: connectivity of landscapes as random walks and electric circuits.
+
+The Python API is the product's interface; the ``landflow`` command is a thin
+shell over it.
+
+>>> import landflow as lf
+>>> grid = lf.Grid.from_array([[1.0, 1.0, 1.0]])
+>>> graph = lf.build_graph(grid, [[1, 0, 2]])
+>>> float(lf.effective_resistance(lf.patch_voltages(graph))[0, 1])
+2.0
+"""
+
+import logging
+
+__version__ = "0.1.0"
+
+from .analyses.current import cumulative_current, edge_current, pair_current, pair_weights
+from .analyses.resistance import PatchVoltages, effective_resistance, patch_voltages, resistance_table
+from .errors import ConfigError, InputError, LandflowError, SolverError
+from .graph import CellGraph, build_graph, landscape_mask
+from .grid import Grid
+from .solve import Solver, factorize
+
+logging.getLogger("landflow").addHandler(logging.NullHandler())
+
+
+def run_study(study):
+    """Run a study file (or a validated Study); see :func:`landflow.study.run.run_study`."""
+    from .study.run import run_study as _run
+    return _run(study)
+
+
+def check_study(study):
+    """Validate a study and its inputs without solving; see :func:`landflow.study.run.check_study`."""
+    from .study.run import check_study as _check
+    return _check(study)
+
+
+def read_grid(path, **kwargs):
+    """Read a single-band raster into a Grid; see :func:`landflow.io.rasters.read_grid`."""
+    from .io.rasters import read_grid as _read
+    return _read(path, **kwargs)
+
+
+__all__ = [
+    "__version__", "Grid", "CellGraph", "build_graph", "landscape_mask", "Solver", "factorize",
+    "PatchVoltages", "patch_voltages", "effective_resistance", "resistance_table",
+    "edge_current", "pair_current", "pair_weights", "cumulative_current",
+    "run_study", "check_study", "read_grid",
+    "LandflowError", "InputError", "ConfigError", "SolverError",
+]

@@ -1,0 +1,132 @@
+"""The raster grid: values, the mask of cells inside the landscape, and geo-reference."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+from affine import Affine
+
+from .errors import InputError
+
+__all__ = ["Grid"]
+
+
+@dataclass(eq=False)
+class Grid:
+    """A single-band raster held in memory.
+
+    Parameters
+    ----------
+    values : ndarray, shape (rows, cols)
+        Cell values, float64.
+    mask : ndarray of bool, shape (rows, cols)
+        True where a cell is inside the landscape (not nodata, finite).
+    transform : affine.Affine
+        Map coordinates of the upper-left corner of cell (row, col) are
+        ``transform * (col, row)``. Rotated grids are not supported.
+    crs : object or None
+        The coordinate reference system as given by the reader (a
+        ``rasterio.crs.CRS`` when read from a file), or None.
+    source : str
+        Where the values came from, used in error messages.
+    nodata : float or None
+        The nodata value of the source file, if any.
+    """
+
+    values: np.ndarray
+    mask: np.ndarray
+    transform: Affine = field(default_factory=Affine.identity)
+    crs: object = None
+    source: str = "array"
+    nodata: float | None = None
+
+    def __post_init__(self):
+        self.values = np.asarray(self.values, dtype=np.float64)
+        self.mask = np.asarray(self.mask, dtype=bool)
+        if self.values.ndim != 2:
+            raise InputError(
+                f"{self.source}: expected a 2-D raster, got an array of shape {self.values.shape}."
+            )
+        if self.mask.shape != self.values.shape:
+            raise InputError(
+                f"{self.source}: mask shape {self.mask.shape} differs from the values' "
+                f"shape {self.values.shape}."
+            )
+        t = self.transform
+        if t.b != 0 or t.d != 0:
+            raise InputError(
+                f"{self.source}: the grid is rotated or sheared (transform {tuple(t)[:6]}); "
+                "warp it to a north-up grid first (for example with gdalwarp)."
+            )
+
+    @classmethod
+    def from_array(cls, values, *, cell_size=1.0, mask=None, origin=(0.0, 0.0), crs=None):
+        """Make a grid from an array, for use from Python without files.
+
+        Parameters
+        ----------
+        values : array_like, shape (rows, cols)
+        cell_size : float or (float, float)
+            Cell width and height in map units; a single number for square cells.
+        mask : array_like of bool, optional
+            Cells inside the landscape. Default: the finite cells.
+        origin : (float, float)
+            Map coordinates (x, y) of the upper-left corner.
+
+        Examples
+        --------
+        >>> g = Grid.from_array([[1.0, 2.0, 1.0]], cell_size=10)
+        >>> g.cell_size
+        (10.0, 10.0)
+        """
+        values = np.asarray(values, dtype=np.float64)
+        width, height = (cell_size, cell_size) if np.isscalar(cell_size) else cell_size
+        if mask is None:
+            mask = np.isfinite(values)
+        transform = Affine(float(width), 0.0, origin[0], 0.0, -float(height), origin[1])
+        return cls(values, mask, transform, crs)
+
+    @property
+    def shape(self):
+        return self.values.shape
+
+    @property
+    def cell_size(self):
+        """Cell (width, height) in map units, both positive."""
+        return abs(self.transform.a), abs(self.transform.e)
+
+    def xy(self, row, col):
+        """Map coordinates of the centre of cell(s) (row, col)."""
+        x, y = self.transform * (np.asarray(col) + 0.5, np.asarray(row) + 0.5)
+        return x, y
+
+    def rowcol(self, x, y):
+        """Row and column of the cell(s) holding map point(s) (x, y); may be out of range."""
+        col, row = ~self.transform * (np.asarray(x, dtype=float), np.asarray(y, dtype=float))
+        return np.floor(row).astype(np.int64), np.floor(col).astype(np.int64)
+
+    def where(self, row, col):
+        """A phrase locating a cell for error messages: row/col and map coordinates."""
+        x, y = self.xy(row, col)
+        return f"row {row}, col {col} (x={x:.6g}, y={y:.6g})"
+
+    def same_grid(self, other):
+        """Describe how `other` differs from this grid, or return None when they match."""
+        diffs = []
+        if self.shape != other.shape:
+            diffs.append(f"shape {other.shape} instead of {self.shape}")
+        if not self.transform.almost_equals(other.transform, precision=1e-9 * max(self.cell_size)):
+            diffs.append(f"transform {tuple(other.transform)[:6]} instead of {tuple(self.transform)[:6]}")
+        if (self.crs is None) != (other.crs is None) or (
+            self.crs is not None and self.crs != other.crs
+        ):
+            diffs.append(f"CRS {_crs_name(other.crs)} instead of {_crs_name(self.crs)}")
+        return "; ".join(diffs) or None
+
+
+def _crs_name(crs):
+    if crs is None:
+        return "none"
+    to_string = getattr(crs, "to_string", None)
+    return to_string() if to_string else str(crs)

@@ -1,0 +1,98 @@
+"""Read and write GeoTIFF (and any single-band raster GDAL reads)."""
+
+from __future__ import annotations
+
+import numpy as np
+import rasterio
+from rasterio.errors import RasterioIOError
+
+from ..errors import InputError
+from ..grid import Grid
+from ._atomic import atomic_path
+
+__all__ = ["read_grid", "read_aligned", "write_geotiff", "GEOTIFF_PROFILE", "NODATA"]
+
+#: Nodata value of every float raster landflow writes.
+NODATA = -9999.0
+
+#: Creation options of every GeoTIFF landflow writes; callers may overlay their own.
+GEOTIFF_PROFILE = {
+    "driver": "GTiff", "dtype": "float32", "count": 1, "nodata": NODATA,
+    "tiled": True, "blockxsize": 256, "blockysize": 256,
+    "compress": "deflate", "predictor": 3, "zlevel": 6,
+}
+
+
+def read_grid(path, *, what="raster", allow_geographic=False):
+    """Read band 1 of a raster into a :class:`Grid`.
+
+    Cells equal to the nodata value are outside the landscape; so are
+    non-finite cells when the file declares no nodata value.
+
+    Parameters
+    ----------
+    path : str or Path
+    what : str
+        What the raster is, for error messages ("resistance raster", ...).
+    allow_geographic : bool
+        Accept a geographic CRS (degrees). Off by default: distances in
+        degrees are not metres, and the edge rule needs lengths.
+
+    Raises
+    ------
+    InputError
+        The file is missing or unreadable, has more than one band, or is in a
+        geographic CRS.
+    """
+    try:
+        with rasterio.open(path) as src:
+            if src.count != 1:
+                raise InputError(f"{path}: the {what} has {src.count} bands; landflow reads single-band "
+                                 "rasters. Extract the band you mean (gdal_translate -b N).")
+            values = src.read(1, masked=False).astype(np.float64)
+            nodata, transform, crs = src.nodata, src.transform, src.crs
+    except RasterioIOError as exc:
+        raise InputError(f"cannot read the {what} '{path}': {exc}. Check the path "
+                         "(relative paths in a study are relative to the study file).") from None
+    if crs is not None and crs.is_geographic and not allow_geographic:
+        raise InputError(f"{path}: the {what} is in a geographic CRS ({crs.to_string()}) whose units "
+                         "are degrees, not lengths. Reproject it to a projected CRS in metres.")
+    if nodata is None:
+        mask = np.isfinite(values)
+    elif np.isnan(nodata):
+        mask = ~np.isnan(values)
+    else:
+        mask = values != nodata
+    return Grid(values, mask, transform, crs, source=str(path), nodata=nodata)
+
+
+def read_aligned(path, grid, *, what="raster"):
+    """Read a raster that must share ``grid``'s shape, transform and CRS."""
+    other = read_grid(path, what=what, allow_geographic=True)
+    diff = grid.same_grid(other)
+    if diff:
+        raise InputError(f"{path}: the {what} is not on the grid of {grid.source}: {diff}. "
+                         "Resample it onto that grid (same extent, cell size and CRS).")
+    return other
+
+
+def write_geotiff(path, array, grid, **profile):
+    """Write ``array`` on ``grid`` as a tiled, compressed float32 GeoTIFF.
+
+    NaN cells are written as :data:`NODATA`. The file appears under its final
+    name only once it is complete.
+    """
+    array = np.asarray(array)
+    if array.shape != grid.shape:
+        raise InputError(f"array of shape {array.shape} does not fit the grid {grid.shape}.")
+    opts = {**GEOTIFF_PROFILE, "height": grid.shape[0], "width": grid.shape[1],
+            "transform": grid.transform, "crs": grid.crs, **profile}
+    if grid.shape[0] < opts["blockysize"] or grid.shape[1] < opts["blockxsize"]:
+        opts["tiled"] = False
+        opts.pop("blockxsize"), opts.pop("blockysize")
+    data = array.astype(opts["dtype"])
+    if np.issubdtype(data.dtype, np.floating):
+        data = np.where(np.isnan(data), opts["nodata"], data)
+    with atomic_path(path) as tmp:
+        with rasterio.open(tmp, "w", **opts) as dst:
+            dst.write(data, 1)

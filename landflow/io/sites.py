@@ -1,0 +1,118 @@
+"""Patches from a labelled raster or from points."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+
+from ..errors import InputError
+from .rasters import read_aligned
+
+__all__ = ["Patches", "read_patch_raster", "read_patch_points", "patch_strength_from_raster"]
+
+
+@dataclass(eq=False)
+class Patches:
+    """Patch labels on the grid (0 = no patch) and optional per-patch strength.
+
+    Attributes
+    ----------
+    labels : ndarray of int64, shape of the grid
+    strength : dict {patch id: float} or None
+    source : str
+    """
+
+    labels: np.ndarray
+    strength: dict | None = None
+    source: str = "array"
+
+    @property
+    def ids(self):
+        ids = np.unique(self.labels)
+        return ids[ids != 0]
+
+
+def read_patch_raster(path, grid):
+    """Patch labels from an integer raster on the same grid (0 or nodata = no patch)."""
+    src = read_aligned(path, grid, what="patch raster")
+    values = np.where(src.mask, src.values, 0.0)
+    bad = (values != np.round(values)) | (values < 0)
+    if bad.any():
+        rows, cols = np.nonzero(bad)
+        raise InputError(f"{path}: {bad.sum()} cell(s) are not whole non-negative numbers; patch labels "
+                         f"must be integers, 0 for no patch. First at {grid.where(rows[0], cols[0])}.")
+    return Patches(values.astype(np.int64), None, str(path))
+
+
+def read_patch_points(path, grid, *, strength_column=None):
+    """Patches from a CSV of points with columns ``x``, ``y``, ``id`` (map coordinates of the grid's CRS).
+
+    Each point marks the cell it falls in. Several points may share an id
+    (one patch of several cells); two different ids in one cell are an error.
+    """
+    try:
+        table = pd.read_csv(path)
+    except FileNotFoundError:
+        raise InputError(f"patch points file '{path}' does not exist. Check the path "
+                         "(relative paths in a study are relative to the study file).") from None
+    except (pd.errors.ParserError, pd.errors.EmptyDataError, UnicodeDecodeError) as exc:
+        raise InputError(f"{path}: cannot read it as CSV ({exc}).") from None
+    needed = ["x", "y", "id"] + ([strength_column] if strength_column else [])
+    missing = [c for c in needed if c not in table.columns]
+    if missing:
+        raise InputError(f"{path}: missing column(s) {', '.join(missing)}; found {', '.join(map(str, table.columns))}. "
+                         "The points table needs x, y (map coordinates in the raster's CRS) and id (a whole number > 0).")
+    for col in needed:
+        values = pd.to_numeric(table[col], errors="coerce")
+        if values.isna().any():
+            line = int(values.isna().to_numpy().argmax()) + 2
+            raise InputError(f"{path}, line {line}: column {col!r} holds {table[col].iloc[line - 2]!r}, not a number.")
+        table[col] = values
+    ids = table["id"].to_numpy()
+    if ((ids != np.round(ids)) | (ids <= 0)).any():
+        line = int(((ids != np.round(ids)) | (ids <= 0)).argmax()) + 2
+        raise InputError(f"{path}, line {line}: id {ids[line - 2]:g} is not a whole number > 0.")
+    rows, cols = grid.rowcol(table["x"].to_numpy(), table["y"].to_numpy())
+    inside = (rows >= 0) & (rows < grid.shape[0]) & (cols >= 0) & (cols < grid.shape[1])
+    if not inside.all():
+        n = int(np.argmin(inside))
+        raise InputError(f"{path}, line {n + 2}: point ({table['x'][n]:g}, {table['y'][n]:g}) with id "
+                         f"{ids[n]:g} lies outside the raster {grid.source}. Check its coordinates and CRS.")
+    on_nodata = ~grid.mask[rows, cols]
+    if on_nodata.any():
+        n = int(np.argmax(on_nodata))
+        raise InputError(f"{path}, line {n + 2}: point with id {ids[n]:g} falls on a nodata cell of "
+                         f"{grid.source} at {grid.where(rows[n], cols[n])}. Move it onto the landscape.")
+    labels = np.zeros(grid.shape, dtype=np.int64)
+    cell = rows * grid.shape[1] + cols
+    frame = pd.DataFrame({"cell": cell, "id": ids.astype(np.int64)})
+    clash = frame.groupby("cell")["id"].nunique()
+    if (clash > 1).any():
+        c = int(clash.index[clash > 1][0])
+        r, q = divmod(c, grid.shape[1])
+        both = sorted(frame.loc[frame["cell"] == c, "id"].unique())
+        raise InputError(f"{path}: points with different ids {both} fall in the same cell at "
+                         f"{grid.where(r, q)}. Merge them into one id or move one of them.")
+    labels.reshape(-1)[cell] = ids.astype(np.int64)
+    strength = None
+    if strength_column:
+        per_id = table.groupby("id")[strength_column]
+        if (per_id.nunique() > 1).any():
+            raise InputError(f"{path}: patch ids with several points must repeat the same {strength_column!r}.")
+        strength = {int(k): float(v) for k, v in per_id.first().items()}
+    return Patches(labels, strength, str(path))
+
+
+def patch_strength_from_raster(path, grid, patches):
+    """Strength of each patch as the sum of a raster's values over its cells."""
+    src = read_aligned(path, grid, what="patch strength raster")
+    values = np.where(src.mask, src.values, 0.0)
+    if (values < 0).any():
+        rows, cols = np.nonzero(values < 0)
+        raise InputError(f"{path}: strength must be >= 0; first negative at {grid.where(rows[0], cols[0])}.")
+    ids = patches.ids
+    sums = np.bincount(np.searchsorted(ids, patches.labels[patches.labels > 0]),
+                       weights=values[patches.labels > 0], minlength=ids.size)
+    return {int(i): float(s) for i, s in zip(ids, sums)}

@@ -1,0 +1,77 @@
+"""Quick-look maps and the plain-language run report."""
+
+from __future__ import annotations
+
+import numpy as np
+
+from .io._atomic import atomic_path
+
+__all__ = ["quicklook", "write_report"]
+
+
+def quicklook(path, array, *, patches=None, title="", units="", log_scale=True):
+    """Save a PNG map of ``array``: perceptually uniform colours, optional log stretch, patch outlines.
+
+    NaN cells are left blank. With ``log_scale`` the colours span the 1st to
+    the 99.9th percentile of the positive values on a log scale.
+    """
+    import matplotlib
+    matplotlib.use("Agg", force=False)
+    import matplotlib.pyplot as plt
+    from matplotlib.colors import LogNorm, Normalize
+
+    data = np.ma.masked_invalid(np.asarray(array, dtype=float))
+    positive = data.compressed()
+    if log_scale:
+        positive = positive[positive > 0]
+    norm = None
+    if positive.size:
+        lo, hi = np.percentile(positive, [1, 99.9])
+        if log_scale and hi > lo > 0:
+            norm = LogNorm(vmin=lo, vmax=hi, clip=True)
+            data = np.ma.masked_less_equal(data, 0)
+        elif hi > lo:
+            norm = Normalize(vmin=lo, vmax=hi, clip=True)
+    rows, cols = data.shape
+    width = 8.0
+    fig, ax = plt.subplots(figsize=(width, max(3.0, width * rows / cols * 0.9)), dpi=120)
+    image = ax.imshow(data, cmap="viridis", norm=norm, interpolation="nearest")
+    if patches is not None and (np.asarray(patches) > 0).any():
+        ax.contour(np.asarray(patches) > 0, levels=[0.5], colors="white", linewidths=0.8)
+    bar = fig.colorbar(image, ax=ax, shrink=0.85)
+    bar.set_label(units + (" (log scale)" if isinstance(norm, LogNorm) else ""))
+    ax.set_title(title)
+    ax.set_xlabel("column")
+    ax.set_ylabel("row")
+    fig.tight_layout()
+    with atomic_path(path) as tmp:
+        fig.savefig(tmp, format="png")
+    plt.close(fig)
+
+
+def write_report(path, manifest, caution):
+    """A short Markdown account of a run: inputs, key numbers, outputs, warnings and the caution."""
+    land = manifest["landscape"]
+    lines = [
+        "# landflow run report", "",
+        f"landflow {manifest['landflow_version']}; study file: {manifest['study_file'] or '(from Python)'}", "",
+        "## Caution", "", caution, "",
+        "## Landscape", "",
+        f"- {land['rows']} x {land['cols']} cells of {land['cell_size'][0]:g} x {land['cell_size'][1]:g} map units, "
+        f"CRS {land['crs'] or 'none'}",
+        f"- {land['cells']:,} cells in the landscape, {len(land['patches'])} patches, {land['pieces']} connected piece(s)",
+    ]
+    for solver in manifest["solvers"]:
+        lines.append(f"- solver: {solver['method']}, {solver['unknowns']:,} unknowns, "
+                     f"{solver['right_hand_sides']} right-hand sides, worst relative residual "
+                     f"{solver['worst_relative_residual']:.1e}")
+    if manifest.get("summary"):
+        lines += ["", "## Key numbers", ""] + [f"- {k}: {v}" for k, v in manifest["summary"].items()]
+    lines += ["", "## Outputs", "", "| file | what it holds | units |", "|---|---|---|"]
+    lines += [f"| {o['file']} | {o['description']} | {o['units']} |" for o in manifest["outputs"]]
+    if manifest["warnings"]:
+        lines += ["", "## Warnings", ""] + [f"- {w}" for w in manifest["warnings"]]
+    lines += ["", f"Total time: {manifest['timings_seconds']['total']:.1f} s. "
+              "manifest.json holds the settings, input hashes and versions needed to rerun this study.", ""]
+    with atomic_path(path) as tmp:
+        tmp.write_text("\n".join(lines), encoding="utf-8")

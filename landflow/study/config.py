@@ -1,0 +1,121 @@
+"""Study files: TOML in landflow's own schema, validated before any work."""
+
+from __future__ import annotations
+
+import tomllib
+from dataclasses import dataclass, field
+from pathlib import Path
+
+from ..errors import ConfigError
+from ..graph import EDGE_RULES, NEIGHBOURS
+from ..solve import METHODS
+from .schema import REQUIRED, Key, Section, close_match, validate_section
+
+__all__ = ["Study", "load_study", "SECTIONS"]
+
+
+def _positive(value):
+    return None if value > 0 else "must be greater than 0"
+
+
+SECTIONS = {
+    "landscape": Section({
+        "resistance": Key(str, None, "raster of resistance per unit length (map units); nodata = outside", path="input"),
+        "conductance": Key(str, None, "raster of conductance per unit length; 0 = barrier, nodata = outside", path="input"),
+        "neighbours": Key(int, 8, "cells joined to each cell: 8 (with diagonals) or 4", choices=NEIGHBOURS),
+        "edge_rule": Key(str, "mean_resistance", "how two cells' values make an edge's conductance", choices=EDGE_RULES),
+    }, "The surface the walk moves over.", exactly_one=(("resistance", "conductance"),)),
+    "patches": Section({
+        "raster": Key(str, None, "integer raster of patch labels on the landscape's grid, 0 = no patch", path="input"),
+        "points": Key(str, None, "CSV with columns x, y, id (map coordinates in the landscape's CRS)", path="input"),
+        "strength_column": Key(str, None, "column of the points CSV holding each patch's strength"),
+        "strength_raster": Key(str, None, "raster summed over each patch's cells to give its strength", path="input"),
+    }, "Habitat patches or sample sites.", exactly_one=(("raster", "points"),)),
+    "solver": Section({
+        "method": Key(str, "auto", "linear solver: auto, direct (sparse LU) or multigrid (AMG + CG)", choices=METHODS),
+        "tolerance": Key(float, 1e-8, "relative residual target of iterative solves", check=_positive),
+    }, "How the linear systems are solved."),
+    "output": Section({
+        "folder": Key(str, "results", "folder for the outputs, relative to the study file", path="output"),
+        "quicklooks": Key(bool, True, "write PNG quick-look maps"),
+    }, "Where results go."),
+}
+
+
+@dataclass
+class Study:
+    """A validated study: every setting resolved, paths absolute.
+
+    Attributes
+    ----------
+    path : Path or None
+        The study file.
+    settings : dict
+        ``{section: {key: value}}`` for the fixed sections.
+    analyses : dict
+        ``{analysis name: {key: value}}`` in the order landflow runs them.
+    """
+
+    path: Path | None
+    settings: dict
+    analyses: dict = field(default_factory=dict)
+
+    @property
+    def output_folder(self):
+        return Path(self.settings["output"]["folder"]).resolve()
+
+    def resolved(self):
+        """A JSON-ready copy of every setting (paths as strings)."""
+        def plain(v):
+            return str(v) if isinstance(v, Path) else v
+        out = {s: {k: plain(v) for k, v in keys.items()} for s, keys in self.settings.items()}
+        out["analyses"] = {a: {k: plain(v) for k, v in keys.items()} for a, keys in self.analyses.items()}
+        return out
+
+
+def load_study(path):
+    """Read and validate a study file.
+
+    Raises
+    ------
+    ConfigError
+        The file is missing or not TOML, or a key is unknown, mistyped, out of
+        range or names a missing file. The message names the file and the key.
+    """
+    path = Path(path)
+    try:
+        raw = tomllib.loads(path.read_text(encoding="utf-8"))
+    except FileNotFoundError:
+        raise ConfigError(f"study file '{path}' does not exist.") from None
+    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
+        raise ConfigError(f"{path}: not valid TOML: {exc}.") from None
+    return study_from_dict(raw, base_dir=path.resolve().parent, source=str(path), path=path)
+
+
+def study_from_dict(raw, *, base_dir=".", source="study", path=None):
+    """Validate an already-parsed study (a dict shaped like the TOML file)."""
+    from .steps import ANALYSES
+
+    base_dir = Path(base_dir)
+    known = list(SECTIONS) + ["analyses"]
+    for name in raw:
+        if name not in known:
+            raise ConfigError(f"{source}: unknown table [{name}].{close_match(name, known)} "
+                              f"Known tables: {', '.join(known)}.")
+    settings = {}
+    for name, section in SECTIONS.items():
+        table = raw.get(name, {})
+        if name in ("landscape", "patches") and name not in raw:
+            raise ConfigError(f"{source}: the study needs a [{name}] table ({section.doc}).")
+        settings[name] = validate_section(table, section, name, base_dir, source)
+    wanted = raw.get("analyses", {})
+    if not isinstance(wanted, dict) or not wanted:
+        raise ConfigError(f"{source}: no analyses requested. Add a table such as [analyses.effective_resistance]; "
+                          f"available: {', '.join(ANALYSES)}.")
+    for name in wanted:
+        if name not in ANALYSES:
+            raise ConfigError(f"{source}: unknown analysis [analyses.{name}].{close_match(name, ANALYSES)} "
+                              f"Available: {', '.join(ANALYSES)}.")
+    analyses = {name: validate_section(wanted[name], step.SETTINGS, f"analyses.{name}", base_dir, source)
+                for name, step in ANALYSES.items() if name in wanted}
+    return Study(path, settings, analyses)

@@ -1,0 +1,286 @@
+"""Run one study: read inputs, build the graph, run each requested analysis, write outputs."""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import logging
+import os
+import platform
+import shutil
+import sys
+import time
+from functools import cached_property
+from importlib import metadata
+from pathlib import Path
+
+import numpy as np
+
+from .. import __version__
+from ..errors import ConfigError, InputError
+from ..graph import build_graph
+from ..io.rasters import read_aligned, read_grid, write_geotiff
+from ..io.sites import patch_strength_from_raster, read_patch_points, read_patch_raster
+from ..io.tables import write_csv
+from .config import Study, load_study
+
+__all__ = ["run_study", "check_study", "RunContext", "CAUTION"]
+
+log = logging.getLogger("landflow")
+
+CAUTION = ("These are model outputs. They depend on the resistance values and on the assumptions of the "
+           "random-walk and circuit models. Use them for decision support alongside field evidence, local "
+           "regulation and licensed professional practice, not as a substitute for them.")
+
+_DEPENDENCIES = ("numpy", "scipy", "pandas", "rasterio", "scikit-image", "pyamg", "matplotlib")
+
+
+class RunContext:
+    """What an analysis step sees: inputs, the graph, shared solves, and an output writer.
+
+    Steps write only through :meth:`write_raster`, :meth:`write_table` and
+    :meth:`quicklook`, which record every output for the manifest.
+    """
+
+    def __init__(self, study, folder):
+        self.study = study
+        self.folder = Path(folder)
+        self.outputs = []
+        self.warnings = []
+        self.timings = {}
+        self.inputs = {}
+        self.summary = {}
+        self._load()
+
+    # -- inputs ---------------------------------------------------------------
+    def _load(self):
+        land = self.study.settings["landscape"]
+        kind = "resistance" if land["resistance"] is not None else "conductance"
+        self.kind = kind
+        with self.timed("read inputs"):
+            self.grid = read_grid(self._input(land[kind]), what=f"{kind} raster")
+            spec = self.study.settings["patches"]
+            if spec["raster"] is not None:
+                if spec["strength_column"] is not None:
+                    raise ConfigError(f"{self.study.path}: 'patches.strength_column' only applies to patch points; "
+                                      "with a patch raster use 'patches.strength_raster'.")
+                self.patches = read_patch_raster(self._input(spec["raster"]), self.grid)
+            else:
+                self.patches = read_patch_points(self._input(spec["points"]), self.grid,
+                                                 strength_column=spec["strength_column"])
+            if spec["strength_raster"] is not None:
+                self.patches.strength = patch_strength_from_raster(
+                    self._input(spec["strength_raster"]), self.grid, self.patches)
+        with self.timed("build graph"):
+            self.graph = build_graph(self.grid, self.patches.labels, kind=kind,
+                                     neighbours=land["neighbours"], edge_rule=land["edge_rule"])
+        self._check_patches()
+
+    def _input(self, path):
+        """Record an input file's SHA-256 for the manifest and return its path."""
+        path = Path(path)
+        if str(path) not in self.inputs:
+            digest = hashlib.sha256()
+            with open(path, "rb") as fh:
+                for chunk in iter(lambda: fh.read(1 << 20), b""):
+                    digest.update(chunk)
+            self.inputs[str(path)] = digest.hexdigest()
+        return path
+
+    def read_aligned(self, path, what):
+        """Read another raster that must lie on the landscape's grid (mortality, ...)."""
+        return read_aligned(self._input(path), self.grid, what=what)
+
+    def _check_patches(self):
+        wanted = self.patches.ids
+        found = self.graph.patch_ids
+        lost = np.setdiff1d(wanted, found)
+        if lost.size:
+            raise InputError(f"{self.patches.source}: patch(es) {', '.join(map(str, lost))} lie entirely on cells "
+                             f"outside the landscape of {self.grid.source} (nodata or barrier). "
+                             "Move them or fix the landscape raster.")
+        if found.size < 2:
+            raise InputError(f"{self.patches.source}: found {found.size} patch(es); pairwise analyses need at "
+                             "least two. Check the labels (0 means no patch).")
+        comp = self.graph.components[: found.size]
+        if np.unique(comp).size > 1:
+            groups = [", ".join(map(str, found[comp == c])) for c in np.unique(comp)]
+            self.warn("the landscape falls apart into pieces that no walk can cross; patches in different "
+                      f"pieces have infinite effective resistance. Groups: {' | '.join(groups)}")
+
+    @property
+    def strength(self):
+        """Per-patch strength in graph order, or None."""
+        s = self.patches.strength
+        return None if s is None else np.array([s[int(p)] for p in self.graph.patch_ids])
+
+    # -- shared solves -------------------------------------------------------
+    @cached_property
+    def voltages(self):
+        """Patch voltages (k - 1 solves), computed once and shared by every step."""
+        from ..analyses.resistance import patch_voltages
+        solver = self.study.settings["solver"]
+        with self.timed("solve"):
+            return patch_voltages(self.graph, method=solver["method"], tolerance=solver["tolerance"],
+                                  progress=log.info)
+
+    # -- outputs -------------------------------------------------------------
+    def warn(self, message):
+        log.warning(message)
+        self.warnings.append(message)
+
+    def timed(self, name):
+        return _Timer(self.timings, name)
+
+    def _record(self, name, description, units):
+        self.outputs.append({"file": name, "description": description, "units": units})
+        return self.folder / name
+
+    def write_raster(self, name, values, *, description, units, per_node=True):
+        """Write per-node values (spread over patch cells) or a full cell array as GeoTIFF."""
+        path = self._record(name, description, units)
+        path.parent.mkdir(parents=True, exist_ok=True)
+        array = self.graph.to_raster(values) if per_node else values
+        write_geotiff(path, array, self.grid)
+        return array
+
+    def write_table(self, name, table, *, description, units="see docs/outputs.md", **kwargs):
+        path = self._record(name, description, units)
+        write_csv(path, table, **kwargs)
+
+    def quicklook(self, name, array, *, title, units, log_scale=True):
+        if not self.study.settings["output"]["quicklooks"]:
+            return
+        from ..report import quicklook
+        path = self._record(name, f"quick-look picture: {title}", units)
+        quicklook(path, array, patches=self.patches.labels, title=title, units=units, log_scale=log_scale)
+
+
+class _Timer:
+    def __init__(self, timings, name):
+        self.timings, self.name = timings, name
+
+    def __enter__(self):
+        self.start = time.perf_counter()
+        log.info("%s ...", self.name)
+
+    def __exit__(self, *exc):
+        seconds = time.perf_counter() - self.start
+        self.timings[self.name] = round(self.timings.get(self.name, 0.0) + seconds, 3)
+        if exc[0] is None:
+            log.info("%s done in %.1f s", self.name, seconds)
+
+
+def check_study(study):
+    """Validate a study and its inputs without solving; returns a short summary dict."""
+    study = study if isinstance(study, Study) else load_study(study)
+    ctx = RunContext(study, study.output_folder)
+    _check_writable(study)
+    graph = ctx.graph
+    return {"cells": int((graph.node_of_cell >= 0).sum()), "nodes": graph.n_nodes,
+            "patches": graph.n_patches, "pieces": int(graph.components.max()) + 1,
+            "analyses": list(study.analyses), "warnings": ctx.warnings}
+
+
+def _check_writable(study):
+    folder = study.output_folder
+    parent = folder.parent
+    probe = parent
+    while not probe.exists():
+        probe = probe.parent
+    if not os.access(probe, os.W_OK | os.X_OK) or (folder.exists() and not os.access(folder, os.W_OK)):
+        raise ConfigError(f"{study.path}: the output folder '{folder}' ('output.folder') cannot be written "
+                          f"({probe} is not writable). Choose another folder.")
+
+
+def run_study(study):
+    """Run a study and write its outputs.
+
+    Parameters
+    ----------
+    study : Study, str or Path
+        A validated study or the path of a study TOML file.
+
+    Returns
+    -------
+    dict
+        The manifest (also written as ``manifest.json``); ``manifest["folder"]``
+        is the output folder.
+
+    Notes
+    -----
+    Outputs are written into a hidden temporary folder beside the output
+    folder, which replaces the output folder only when every step succeeded.
+    A failed run leaves any earlier finished output untouched.
+    """
+    from .steps import ANALYSES
+
+    study = study if isinstance(study, Study) else load_study(study)
+    _check_writable(study)
+    final = study.output_folder
+    final.parent.mkdir(parents=True, exist_ok=True)
+    tmp = final.with_name(f".{final.name}.partial-{os.getpid()}")
+    if tmp.exists():
+        shutil.rmtree(tmp)
+    tmp.mkdir()
+    started = time.perf_counter()
+    try:
+        ctx = RunContext(study, tmp)
+        for name, settings in study.analyses.items():
+            with ctx.timed(name):
+                ANALYSES[name].run(ctx, settings)
+        manifest = _manifest(ctx, time.perf_counter() - started)
+        from ..report import write_report
+        write_report(tmp / "report.md", manifest, CAUTION)
+        with open(tmp / "manifest.json", "w", encoding="utf-8") as fh:
+            json.dump(manifest, fh, indent=2, sort_keys=False)
+            fh.write("\n")
+        _replace_folder(tmp, final)
+    except BaseException:
+        shutil.rmtree(tmp, ignore_errors=True)
+        raise
+    manifest["folder"] = str(final)
+    log.info("results written to %s", final)
+    return manifest
+
+
+def _replace_folder(tmp, final):
+    old = None
+    if final.exists():
+        old = final.with_name(f".{final.name}.old-{os.getpid()}")
+        os.replace(final, old)
+    os.replace(tmp, final)
+    if old is not None:
+        shutil.rmtree(old, ignore_errors=True)
+
+
+def _manifest(ctx, seconds):
+    versions = {"python": platform.python_version()}
+    for dep in _DEPENDENCIES:
+        try:
+            versions[dep] = metadata.version(dep)
+        except metadata.PackageNotFoundError:
+            pass
+    graph = ctx.graph
+    solvers = [s.record() for s in ctx.voltages.solvers] if "voltages" in ctx.__dict__ else []
+    return {
+        "landflow_version": __version__,
+        "study_file": str(ctx.study.path) if ctx.study.path else None,
+        "command": " ".join(sys.argv) if sys.argv and sys.argv[0].endswith("landflow") else None,
+        "versions": versions,
+        "platform": platform.platform(),
+        "inputs": [{"path": p, "sha256": h} for p, h in ctx.inputs.items()],
+        "settings": ctx.study.resolved(),
+        "landscape": {"rows": graph.shape[0], "cols": graph.shape[1],
+                      "cell_size": list(ctx.grid.cell_size),
+                      "crs": ctx.grid.crs.to_string() if ctx.grid.crs else None,
+                      "cells": int((graph.node_of_cell >= 0).sum()), "nodes": graph.n_nodes,
+                      "edges": int(graph.edges[0].size), "patches": [int(p) for p in graph.patch_ids],
+                      "pieces": int(graph.components.max()) + 1},
+        "solvers": solvers,
+        "outputs": ctx.outputs,
+        "summary": ctx.summary,
+        "warnings": ctx.warnings,
+        "timings_seconds": {**ctx.timings, "total": round(seconds, 3)},
+        "caution": CAUTION,
+    }
