@@ -253,7 +253,7 @@ class Corridor:
     pinch_share: float
 
 
-def corridor(voltages, a, b, *, share=0.5, pinch_share=0.1):
+def corridor(voltages, a, b, *, share=0.5, pinch_share=0.05):
     """Corridor extent and pinch points of the unit current from patch a to patch b.
 
     Rules (cells of any patch are left out: they are the ends or stepping stones):

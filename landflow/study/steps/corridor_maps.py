@@ -13,7 +13,7 @@ SETTINGS = Section({
                  check=check_pair_list),
     "corridor_share": Key(float, 0.5, "share of a pair's summed cell current that its corridor holds "
                                       "(the fewest cells that carry it), in (0, 1]", check=share_in_unit_interval),
-    "pinch_share": Key(float, 0.1, "a corridor cell is a pinch point when at least this share of the pair's "
+    "pinch_share": Key(float, 0.05, "a corridor cell is a pinch point when at least this share of the pair's "
                                    "unit current passes through it, in (0, 1]", check=share_in_unit_interval),
     "top_cells": Key(int, 10, "corridor cells listed per pair in corridor_cells.csv",
                      check=lambda v: None if v >= 1 else "must be at least 1"),
