@@ -112,6 +112,18 @@ def link_conductance(voltages):
     Notes
     -----
     Cost: one dense inverse of size (m - 1) per piece of m patches.
+
+    Examples
+    --------
+    A 1 x 5 strip of unit resistance with patches 1, 2, 3 at cells 0, 2, 4:
+    patch 1 reaches 3 only through 2, so there is no direct link 1-3.
+
+    >>> import landflow as lf
+    >>> g = lf.build_graph(lf.Grid.from_array([[1.0] * 5]), [[1, 0, 2, 0, 3]])
+    >>> link_conductance(lf.patch_voltages(g)).round(12)
+    array([[0. , 0.5, 0. ],
+           [0.5, 0. , 0.5],
+           [0. , 0.5, 0. ]])
     """
     k = voltages.graph.n_patches
     c = np.zeros((k, k))
@@ -168,6 +180,21 @@ def corridor_ranking(voltages, weights=None, *, least_cost=None):
     -----
     Cost: O(m^4) arithmetic for m patches in a piece (every link against every
     pair), no solve.
+
+    Examples
+    --------
+    On the strip 1 - 2 - 3 (unit cells, R_12 = R_23 = 2, R_13 = 4, so
+    F = 1/2 + 1/2 + 1/4), losing link 1-2 cuts patch 1 off: the drop is
+    1/R_12 + 1/R_13 = 0.75. Link 1-3 does not exist, so losing it costs nothing.
+
+    >>> import landflow as lf
+    >>> g = lf.build_graph(lf.Grid.from_array([[1.0] * 5]), [[1, 0, 2, 0, 3]])
+    >>> t = corridor_ranking(lf.patch_voltages(g))
+    >>> print(t[["rank", "patch_a", "patch_b", "connectivity_drop"]].round(9).to_string(index=False))
+     rank  patch_a  patch_b  connectivity_drop
+        1        1        2               0.75
+        2        2        3               0.75
+        3        1        3               0.00
     """
     graph = voltages.graph
     k = graph.n_patches
@@ -364,6 +391,17 @@ def restoration_gain(voltages, grid, weights, *, kind="resistance"):
     Notes
     -----
     Cost: O(E k^2) arithmetic for E cell edges and k patches; no solve.
+
+    Examples
+    --------
+    A 1 x 3 strip, patches at the ends: R = (r_0 + r_1)/2 + (r_1 + r_2)/2, so
+    dR/dr = (1/2, 1, 1/2) whatever the values.
+
+    >>> import landflow as lf
+    >>> grid = lf.Grid.from_array([[2.0, 5.0, 3.0]])
+    >>> v = lf.patch_voltages(lf.build_graph(grid, [[1, 0, 2]]))
+    >>> restoration_gain(v, grid, lf.pair_weights(v)).round(12)
+    array([[0.5, 1. , 0.5]])
     """
     graph = voltages.graph
     edges = cell_edges(grid, kind=kind, neighbours=graph.neighbours, edge_rule=graph.edge_rule)
