@@ -72,6 +72,16 @@ def ponds(resistance, seed=SEED):
     return labels, population
 
 
+def with_underpass(resistance, road, dist_stream):
+    """The landscape after an (invented) wildlife underpass: the road cells where the stream
+    passes under the road get stream-bank resistance (2), as if a wide culvert with dry ledges
+    were built there. For the what-if scenario of the demo study."""
+    changed = resistance.copy()
+    underpass = road & (dist_stream < 3.0)
+    changed[underpass] = 2.0
+    return changed
+
+
 def write(name, array, dtype, nodata):
     profile = {"driver": "GTiff", "height": ROWS, "width": COLS, "count": 1, "dtype": dtype,
                "crs": CRS, "transform": TRANSFORM, "nodata": nodata, "compress": "deflate"}
@@ -86,6 +96,7 @@ def main():
     write("resistance.tif", resistance, "float32", -9999.0)
     write("ponds.tif", labels, "uint8", 0)
     write("pond_population.tif", population, "float32", -9999.0)
+    write("resistance_with_underpass.tif", with_underpass(*landscape()), "float32", -9999.0)
     print(f"wrote demo rasters to {HERE}")
 
 

@@ -15,9 +15,12 @@ import logging
 __version__ = "0.1.0"
 
 from .analyses.current import cumulative_current, edge_current, pair_current, pair_weights
+from .analyses.least_cost import LeastCost, least_cost, least_cost_table
+from .analyses.priority import (connectivity, corridor, corridor_ranking, link_conductance, objective_weights,
+                                restoration_gain, scenario_change)
 from .analyses.resistance import PatchVoltages, effective_resistance, patch_voltages, resistance_table
 from .errors import ConfigError, InputError, LandflowError, SolverError
-from .graph import CellGraph, build_graph, landscape_mask
+from .graph import CellGraph, build_graph, cell_edges, landscape_mask
 from .grid import Grid
 from .solve import Solver, factorize
 
@@ -47,5 +50,7 @@ __all__ = [
     "PatchVoltages", "patch_voltages", "effective_resistance", "resistance_table",
     "edge_current", "pair_current", "pair_weights", "cumulative_current",
     "run_study", "check_study", "read_grid",
+    "cell_edges", "connectivity", "link_conductance", "corridor_ranking", "corridor", "objective_weights",
+    "restoration_gain", "scenario_change", "LeastCost", "least_cost", "least_cost_table",
     "LandflowError", "InputError", "ConfigError", "SolverError",
 ]

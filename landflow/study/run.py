@@ -176,10 +176,20 @@ def check_study(study):
     study = study if isinstance(study, Study) else load_study(study)
     ctx = RunContext(study, study.output_folder)
     _check_writable(study)
+    _check_steps(ctx)
     graph = ctx.graph
     return {"cells": int((graph.node_of_cell >= 0).sum()), "nodes": graph.n_nodes,
             "patches": graph.n_patches, "pieces": int(graph.components.max()) + 1,
             "analyses": list(study.analyses), "warnings": ctx.warnings}
+
+
+def _check_steps(ctx):
+    """Let each requested step validate its settings against the inputs before any step runs."""
+    from .steps import ANALYSES
+    for name, settings in ctx.study.analyses.items():
+        check = getattr(ANALYSES[name], "check", None)
+        if check is not None:
+            check(ctx, settings)
 
 
 def _check_writable(study):
@@ -226,6 +236,7 @@ def run_study(study):
     started = time.perf_counter()
     try:
         ctx = RunContext(study, tmp)
+        _check_steps(ctx)
         for name, settings in study.analyses.items():
             with ctx.timed(name):
                 ANALYSES[name].run(ctx, settings)
