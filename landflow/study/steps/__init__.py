@@ -3,6 +3,9 @@
 They run in the order listed here, whatever the order in the study file.
 """
 
-from . import current_density, effective_resistance
+from . import (absorption_probability, arrival_probability, current_density, effective_resistance,
+               expected_steps, expected_visits, hitting_probability, walk_simulation)
 
-ANALYSES = {step.NAME: step for step in (effective_resistance, current_density)}
+ANALYSES = {step.NAME: step for step in (effective_resistance, current_density, hitting_probability,
+                                         absorption_probability, arrival_probability, expected_steps,
+                                         expected_visits, walk_simulation)}
