@@ -104,7 +104,7 @@ def check_mortality(mortality, graph, *, source="mortality", where=None):
     if bad.any():
         rows, cols = np.nonzero(bad)
         raise InputError(f"{source}: {int(bad.sum())} landscape cell(s) have a per-step death probability outside "
-                         f"[0, 1) (first: {values[rows[0], cols[0]]!r} at {_where(rows[0], cols[0], where)}). "
+                         f"[0, 1) (first: {float(values[rows[0], cols[0]]):g} at {_where(rows[0], cols[0], where)}). "
                          "Mortality is a probability per step: use 0 for none and values below 1 "
                          "(1 would kill every walker on the spot; make such cells barriers instead).")
     return values
@@ -174,7 +174,7 @@ def node_crossing_time(graph, crossing_time, *, source="crossing time", where=No
     if bad.any():
         rows, cols = np.nonzero(bad)
         raise InputError(f"{source}: {int(bad.sum())} landscape cell(s) have a crossing time that is negative or "
-                         f"missing (first: {values[rows[0], cols[0]]!r} at {_where(rows[0], cols[0], where)}). "
+                         f"missing (first: {float(values[rows[0], cols[0]]):g} at {_where(rows[0], cols[0], where)}). "
                          "Crossing times are durations: give every landscape cell a value >= 0.")
     tau = np.zeros(graph.n_nodes)
     tau[graph.node_of_cell[cells]] = values[cells]
@@ -195,7 +195,7 @@ def node_source(graph, source_strength, *, source="source strength", where=None)
     if bad.any():
         rows, cols = np.nonzero(bad)
         raise InputError(f"{source}: {int(bad.sum())} landscape cell(s) have a source strength that is negative or "
-                         f"missing (first: {values[rows[0], cols[0]]!r} at {_where(rows[0], cols[0], where)}). "
+                         f"missing (first: {float(values[rows[0], cols[0]]):g} at {_where(rows[0], cols[0], where)}). "
                          "Give every landscape cell a value >= 0 (0 = no walkers released there).")
     s = np.bincount(graph.node_of_cell[inside], weights=values[inside], minlength=graph.n_nodes)
     if not s.sum() > 0:
@@ -228,6 +228,10 @@ class AbsorbingWalk:
         Nodes whose walk never ends (no absorbing patch and no mortality in
         their piece of the landscape, or no neighbour at all).
     solver : Solver or None
+    related : dict
+        Walks on the same graph with other absorbing sets (keyed by their
+        absorbing nodes), built on demand by :func:`hitting_probability` and
+        kept so that their factorisations are reused.
     """
 
     def __init__(self, graph, absorbing, kappa, *, method="auto", tolerance=1e-8):
@@ -247,6 +251,7 @@ class AbsorbingWalk:
         self.transient = np.flatnonzero(grounded & ~self.is_absorbing)
         self.stranded = ~grounded & ~self.is_absorbing
         self.solver = None
+        self.related = {}
         if self.transient.size:
             t = self.transient
             system = graph.laplacian(extra_diagonal=self.killing)[t][:, t]
@@ -379,7 +384,11 @@ def _with_absorbing(walk, nodes):
     nodes = np.unique(np.asarray(nodes, dtype=np.int64))
     if np.array_equal(nodes, walk.absorbing):
         return walk
-    return AbsorbingWalk(walk.graph, nodes, walk.kappa, method=walk.method, tolerance=walk.tolerance)
+    key = tuple(nodes.tolist())
+    if key not in walk.related:
+        walk.related[key] = AbsorbingWalk(walk.graph, nodes, walk.kappa, method=walk.method,
+                                          tolerance=walk.tolerance)
+    return walk.related[key]
 
 
 # -- analyses --------------------------------------------------------------------------------
