@@ -14,8 +14,12 @@ import logging
 
 __version__ = "0.1.0"
 
+from .analyses.absorption import (AbsorbingWalk, absorbing_walk, absorption_probability, arrival_table,
+                                  expected_steps, expected_visits, hitting_probability, mortality_from_resistance,
+                                  most_likely_destination, release_expected_steps)
 from .analyses.current import cumulative_current, edge_current, pair_current, pair_weights
 from .analyses.resistance import PatchVoltages, effective_resistance, patch_voltages, resistance_table
+from .analyses.simulate import WalkSample, simulate_walks
 from .errors import ConfigError, InputError, LandflowError, SolverError
 from .graph import CellGraph, build_graph, landscape_mask
 from .grid import Grid
@@ -46,6 +50,9 @@ __all__ = [
     "__version__", "Grid", "CellGraph", "build_graph", "landscape_mask", "Solver", "factorize",
     "PatchVoltages", "patch_voltages", "effective_resistance", "resistance_table",
     "edge_current", "pair_current", "pair_weights", "cumulative_current",
+    "AbsorbingWalk", "absorbing_walk", "hitting_probability", "absorption_probability", "most_likely_destination",
+    "arrival_table", "expected_steps", "release_expected_steps", "expected_visits", "mortality_from_resistance",
+    "simulate_walks", "WalkSample",
     "run_study", "check_study", "read_grid",
     "LandflowError", "InputError", "ConfigError", "SolverError",
 ]

@@ -278,10 +278,16 @@ class AbsorbingWalk:
         """
         rhs = np.asarray(rhs, dtype=np.float64)
         out = np.zeros(rhs.shape)
-        if self.solver is not None:
-            part = rhs[self.transient]
+        if self.solver is None:
+            return out
+        part = rhs[self.transient]
+        if part.ndim == 1:
             if np.any(part):
                 out[self.transient] = self.solver.solve(part)
+            return out
+        columns = np.flatnonzero(np.any(part != 0, axis=0))      # all-zero columns have the zero solution
+        if columns.size:
+            out[np.ix_(self.transient, columns)] = self.solver.solve(part[:, columns])
         return out
 
     def patch_index(self, patch_id, key="patch"):

@@ -227,6 +227,7 @@ def check_study(study):
     study = study if isinstance(study, Study) else load_study(study)
     ctx = RunContext(study, study.output_folder)
     _check_writable(study)
+    ctx.mortality  # reads and checks the [mortality] input, if any
     graph = ctx.graph
     return {"cells": int((graph.node_of_cell >= 0).sum()), "nodes": graph.n_nodes,
             "patches": graph.n_patches, "pieces": int(graph.components.max()) + 1,

@@ -36,6 +36,11 @@ def run(ctx, settings):
     rng = np.random.default_rng(settings["seed"])
     arrival, steps = [], []
     for pid in wanted:
+        ends = exact.loc[exact["release_patch"] == pid, "probability"].sum()
+        if not ends > 0:
+            ctx.warn(f"walk simulation: walkers from patch {pid} can reach no other patch and cannot die; "
+                     "not simulated.")
+            continue
         sample = simulate_walks(ctx.graph, release_patch=pid, mortality=ctx.mortality, walkers=settings["walkers"],
                                 seed=rng, max_steps=settings["max_steps"])
         table = sample_table(sample, pid)
@@ -52,6 +57,8 @@ def run(ctx, settings):
             ctx.warn(f"walk simulation from patch {pid}: {sample.unfinished} of {sample.walkers} walkers were still "
                      f"walking after {settings['max_steps']} steps; the simulated shares and steps leave them out. "
                      "Raise max_steps.")
+    if not arrival:
+        return
     arrival = pd.concat(arrival, ignore_index=True)
     # judged against the binomial standard error of the exact probability, defined even when no walker arrived
     p = arrival["exact_probability"].to_numpy(dtype=float)
