@@ -438,6 +438,17 @@ def hitting_probability(walk, a, b=None):
     ----------
     Doyle & Snell (1984), Random Walks and Electric Networks, ch. 1 (hitting
     probabilities as voltages).
+
+    Examples
+    --------
+    A 1 x 5 strip with patch 1 at the left end and patch 2 at the right: the
+    drunkard's walk, where P(left before right) falls linearly.
+
+    >>> import landflow as lf
+    >>> graph = lf.build_graph(lf.Grid.from_array([[1.0] * 5]), [[1, 0, 0, 0, 2]])
+    >>> walk = lf.absorbing_walk(graph)
+    >>> graph.to_raster(lf.hitting_probability(walk, 1, 2))
+    array([[1.  , 0.75, 0.5 , 0.25, 0.  ]], dtype=float32)
     """
     graph = walk.graph
     ia = walk.patch_index(a, "patch A")
@@ -592,6 +603,16 @@ def expected_steps(walk, crossing_time=None):
     ndarray, shape (n_nodes,)
         0 on absorbing patches, ``inf`` on stranded nodes. Units: steps, or
         the units of ``crossing_time``.
+
+    Examples
+    --------
+    The drunkard's walk on five states, absorbing at both ends: t = (3, 4, 3)
+    (Grinstead & Snell 1997, section 11.2).
+
+    >>> import landflow as lf
+    >>> graph = lf.build_graph(lf.Grid.from_array([[1.0] * 5]), [[1, 0, 0, 0, 2]])
+    >>> graph.to_raster(lf.expected_steps(lf.absorbing_walk(graph)))
+    array([[0., 3., 4., 3., 0.]], dtype=float32)
     """
     weight = walk.departure_conductance
     if crossing_time is not None:
