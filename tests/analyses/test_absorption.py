@@ -271,3 +271,19 @@ def test_study_bad_requests(study_dir):
     write_tif(study_dir / "neg.tif", np.full((6, 7), -1.0))
     with pytest.raises(InputError, match=r"neg\.tif: 39 landscape cell\(s\) have a crossing time that is negative"):
         lf.run_study(study)
+
+
+def test_study_reports_unreachable_cells(study_dir):
+    # a nodata column cuts off the two right-hand columns (with patches 2 and 3) from patch 1: 12 cells, less
+    # patch 2 itself (it stops the walk), are counted; patch 3 is passed through, so its cell counts
+    resistance = np.random.default_rng(3).uniform(1, 5, (6, 7))
+    resistance[:, 4] = np.nan
+    write_tif(study_dir / "resistance.tif", resistance)
+    study = study_dir / "study.toml"
+    study.write_text(STUDY.format(extra="").split("[analyses.absorption_probability]")[0])
+    manifest = lf.run_study(study)
+    assert any(w.startswith("11 cell(s) cannot reach patch 1 without first entering patch 2")
+               for w in manifest["warnings"]), manifest["warnings"]
+    with rasterio.open(study_dir / "out" / "hitting_probability_1_before_2.tif") as src:
+        h = src.read(1)
+    assert (h[:, 5:] == 0).all() and (h[:, :4] > 0.99).all()

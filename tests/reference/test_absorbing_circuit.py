@@ -2,6 +2,8 @@
 
 import numpy as np
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 import landflow as lf
 from landflow.analyses.absorption import (absorbing_walk, absorption_probability, arrival_table, expected_steps,
@@ -163,3 +165,20 @@ def test_visits_over_conductance_is_the_voltage(n_patches):
     C = W.sum(axis=1)
     expect = np.where(np.isin(np.arange(W.shape[0]), targets), 0.0, v * C)
     np.testing.assert_allclose(cells(graph, visits), expect[state], rtol=1e-9, atol=1e-12)
+
+
+@settings(max_examples=25, deadline=None)
+@given(seed=st.integers(0, 10_000), rows=st.integers(2, 6), cols=st.integers(2, 6),
+       top=st.sampled_from([0.0, 0.05, 0.6]))
+def test_probabilities_sum_to_one_property(seed, rows, cols, top):
+    # Kemeny & Snell 1960, ch. III: absorption into each patch plus death sums to 1 from every transient state.
+    rng = np.random.default_rng(seed)
+    resistance = rng.lognormal(0.0, 1.0, (rows, cols))
+    labels = np.zeros((rows, cols), dtype=int)
+    labels[0, 0] = 1
+    labels[-1, -1] = 2
+    graph = lf.build_graph(lf.Grid.from_array(resistance), labels)
+    walk = absorbing_walk(graph, rng.uniform(0.0, top, (rows, cols)))
+    probability, death = absorption_probability(walk)
+    np.testing.assert_allclose(probability.sum(axis=1) + death, 1.0, atol=1e-9)
+    assert (probability >= -1e-12).all() and (death >= -1e-12).all()
