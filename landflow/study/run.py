@@ -150,14 +150,14 @@ class RunContext:
     @cached_property
     def absorbing_walk(self):
         """The walk with every patch absorbing and the study's mortality, factorised once and shared."""
-        from ..analyses.absorption import absorbing_walk
+        from ..analyses.absorption import absorbing_walk, absorption_probability
         solver = self.study.settings["solver"]
         spec = self.study.settings.get("mortality") or {}
         mortality = self.mortality
         with self.timed("solve absorbing walk"), self.forward_warnings():
             walk = absorbing_walk(self.graph, mortality, method=solver["method"], tolerance=solver["tolerance"],
                                   source=str(spec.get("raster") or "mortality"), where=self.grid.where)
-            walk._absorption  # solve the patch and death columns now, inside the timer
+            absorption_probability(walk)  # solve the patch and death columns now, inside the timer
         if walk.solver is not None:
             self.solvers.append(walk.solver)
         return walk
