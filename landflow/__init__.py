@@ -14,7 +14,7 @@ import logging
 
 __version__ = "0.1.0"
 
-from .analyses.absorption import (AbsorbingWalk, absorbing_walk, absorption_probability, arrival_table,
+from .analyses.absorption import (AbsorbingWalk, StrandedWalkWarning, absorbing_walk, absorption_probability, arrival_table,
                                   expected_steps, expected_visits, hitting_probability, mortality_from_resistance,
                                   most_likely_destination, release_expected_steps)
 from .analyses.current import cumulative_current, edge_current, pair_current, pair_weights
@@ -52,7 +52,7 @@ __all__ = [
     "edge_current", "pair_current", "pair_weights", "cumulative_current",
     "AbsorbingWalk", "absorbing_walk", "hitting_probability", "absorption_probability", "most_likely_destination",
     "arrival_table", "expected_steps", "release_expected_steps", "expected_visits", "mortality_from_resistance",
-    "simulate_walks", "WalkSample",
+    "simulate_walks", "WalkSample", "StrandedWalkWarning",
     "run_study", "check_study", "read_grid",
     "LandflowError", "InputError", "ConfigError", "SolverError",
 ]

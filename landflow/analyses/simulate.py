@@ -166,6 +166,21 @@ def simulate_walks(graph, *, release_patch=None, start_cell=None, absorbing=None
     Notes
     -----
     Cost: O(walkers x mean steps x log(edges)) time, O(walkers + edges) memory.
+    Walkers that can reach no absorbing patch and cannot die walk until
+    ``max_steps``; check :func:`landflow.absorbing_walk`'s warnings first.
+
+    Examples
+    --------
+    The drunkard's walk from the middle of a 1 x 5 strip ends at either end
+    with probability 1/2 and always after an even number of steps.
+
+    >>> import landflow as lf
+    >>> graph = lf.build_graph(lf.Grid.from_array([[1.0] * 5]), [[1, 0, 0, 0, 2]])
+    >>> sample = simulate_walks(graph, start_cell=(0, 2), walkers=1000, seed=1)
+    >>> bool(abs(sample.arrival_probability()[0][0] - 0.5) < 4 * 0.5 / 1000 ** 0.5)
+    True
+    >>> bool((sample.steps % 2 == 0).all())
+    True
     """
     rng = np.random.default_rng(seed)
     k = graph.n_patches
