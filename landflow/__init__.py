@@ -14,9 +14,9 @@ import logging
 
 __version__ = "0.1.0"
 
-from .analyses.absorption import (AbsorbingWalk, StrandedWalkWarning, absorbing_walk, absorption_probability, arrival_table,
-                                  expected_steps, expected_visits, hitting_probability, mortality_from_resistance,
-                                  most_likely_destination, release_expected_steps)
+from .analyses.absorption import (AbsorbingWalk, StrandedWalkWarning, absorbing_walk, absorption_probability,
+                                  arrival_table, expected_steps, expected_visits, hitting_probability,
+                                  mortality_from_resistance, most_likely_destination, release_expected_steps)
 from .analyses.current import cumulative_current, edge_current, pair_current, pair_weights
 from .analyses.resistance import PatchVoltages, effective_resistance, patch_voltages, resistance_table
 from .analyses.simulate import WalkSample, simulate_walks
