@@ -18,6 +18,10 @@ def _positive(value):
     return None if value > 0 else "must be greater than 0"
 
 
+def _non_negative(value):
+    return None if value >= 0 else "must be 0 or more"
+
+
 SECTIONS = {
     "landscape": Section({
         "resistance": Key(str, None, "raster of resistance per unit length (map units); nodata = outside", path="input"),
@@ -31,6 +35,14 @@ SECTIONS = {
         "strength_column": Key(str, None, "column of the points CSV holding each patch's strength"),
         "strength_raster": Key(str, None, "raster summed over each patch's cells to give its strength", path="input"),
     }, "Habitat patches or sample sites.", exactly_one=(("raster", "points"),)),
+    "mortality": Section({
+        "raster": Key(str, None, "raster of per-step death probability in [0, 1) on the landscape's grid; "
+                                 "nodata = 0", path="input"),
+        "death_per_resistance": Key(float, None, "instead of a raster: death probability per step "
+                                                 "1 - exp(-value x resistance of the cell)", check=_non_negative,
+                                    unit="1 / resistance unit"),
+    }, "Optional death of walkers on the way, used by the absorbing-walk analyses. Give at most one key; "
+       "mortality on patch cells is ignored."),
     "solver": Section({
         "method": Key(str, "auto", "linear solver: auto, direct (sparse LU) or multigrid (AMG + CG)", choices=METHODS),
         "tolerance": Key(float, 1e-8, "relative residual target of iterative solves", check=_positive),
