@@ -113,6 +113,7 @@ def effective_resistance(voltages):
     u = voltages.potential[:k, :k]
     d = np.diag(u)
     r = d[:, None] + d[None, :] - u - u.T
+    r = 0.5 * (r + r.T)             # exactly symmetric (rounding differs with the order of terms)
     same = voltages.component_of_patch[:, None] == voltages.component_of_patch[None, :]
     r = np.where(same, r, np.inf)
     np.fill_diagonal(r, 0.0)
