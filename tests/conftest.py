@@ -80,3 +80,31 @@ def study(tmp_path):
         path.write_text(text, encoding="utf-8")
         return path
     return make
+
+
+ROOT = Path(__file__).resolve().parents[1]
+
+
+def run_cli(*commands, cwd=None):
+    """Run ``python -m landflow ARGS`` for each ARGS tuple at once; return their CompletedProcess in order.
+
+    The commands start together so the interpreter start-ups overlap.
+    """
+    import os
+    import subprocess
+    import sys
+
+    env = {**os.environ, "PYTHONPATH": os.pathsep.join(filter(None, [str(ROOT), os.environ.get("PYTHONPATH")]))}
+    running = [(args, subprocess.Popen([sys.executable, "-m", "landflow", *map(str, args)], cwd=cwd, env=env,
+                                       stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True))
+               for args in commands]
+    done = []
+    for args, process in running:
+        stdout, stderr = process.communicate(timeout=300)
+        done.append(subprocess.CompletedProcess(args, process.returncode, stdout, stderr))
+    return done
+
+
+@pytest.fixture(scope="session")
+def cli():
+    return run_cli
