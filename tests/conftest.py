@@ -10,7 +10,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 import rasterio
-from rasterio.transform import from_origin
+from affine import Affine
 
 CRS = "EPSG:3035"
 ORIGIN = (4_321_000.0, 3_210_000.0)
@@ -20,7 +20,7 @@ def write_tif(path, array, *, nodata=None, cell=(10.0, 10.0), origin=ORIGIN, crs
     """Write ``array`` as a single-band GeoTIFF and return its path."""
     array = np.asarray(array)
     width, height = (cell, cell) if np.isscalar(cell) else cell
-    transform = from_origin(origin[0], origin[1], width, height)
+    transform = Affine(width, 0.0, origin[0], 0.0, -height, origin[1])
     dtype = dtype or array.dtype.name
     with rasterio.open(path, "w", driver="GTiff", height=array.shape[0], width=array.shape[1], count=1,
                        dtype=dtype, crs=crs, transform=transform, nodata=nodata) as dst:
