@@ -19,19 +19,25 @@ DEMO = Path(__file__).resolve().parents[1] / "demo_rasters"
 
 @pytest.fixture(scope="module")
 def demo_run(tmp_path_factory, cli):
-    """Copy the demo into a temporary folder, point its output there, and run it once."""
+    """Copy the demo into a temporary folder, point its output there, and run it once.
+
+    ``check`` (on a twin study whose output folder must never appear) and ``--version``
+    run at the same time, so the interpreter start-ups overlap.
+    """
     folder = tmp_path_factory.mktemp("demo") / "demo_rasters"
     shutil.copytree(DEMO, folder, ignore=shutil.ignore_patterns("*.py", "__pycache__"))
     study = folder / "study.toml"
-    text, count = re.subn(r'(?m)^folder = ".*"', 'folder = "demo_results"', study.read_text(encoding="utf-8"))
-    assert count == 1
-    study.write_text(text, encoding="utf-8")
-    (result,) = cli(("run", study))
-    return study, folder / "demo_results", result
+    text = study.read_text(encoding="utf-8")
+    for name, out in [("study.toml", "demo_results"), ("check_only.toml", "never_written")]:
+        changed, count = re.subn(r'(?m)^folder = ".*"', f'folder = "{out}"', text)
+        assert count == 1
+        (folder / name).write_text(changed, encoding="utf-8")
+    run, check, version = cli(("run", study), ("check", folder / "check_only.toml"), ("--version",))
+    return study, folder / "demo_results", run, check, version
 
 
 def test_run_succeeds_and_writes_the_outputs(demo_run):
-    study, out, result = demo_run
+    study, out, result, _, _ = demo_run
     assert result.returncode == 0, result.stderr
     assert "Traceback" not in result.stderr
     assert re.match(rf"landflow: wrote \d+ outputs to {re.escape(str(out))} in [\d.]+ s", result.stdout)
@@ -42,7 +48,7 @@ def test_run_succeeds_and_writes_the_outputs(demo_run):
 
 
 def test_numbers_match_the_api(demo_run):
-    study, out, _ = demo_run
+    study, out, *_ = demo_run
     grid = read_grid(study.parent / "resistance.tif")
     patches = read_patch_raster(study.parent / "ponds.tif", grid)
     graph = lf.build_graph(grid, patches.labels, neighbours=8, edge_rule="mean_resistance")
@@ -66,7 +72,7 @@ def test_numbers_match_the_api(demo_run):
 
 
 def test_manifest_records_inputs_settings_and_solver(demo_run):
-    study, out, _ = demo_run
+    study, out, *_ = demo_run
     manifest = json.loads((out / "manifest.json").read_text(encoding="utf-8"))
     assert manifest["landflow_version"] == lf.__version__
     inputs = {Path(item["path"]).name: item["sha256"] for item in manifest["inputs"]}
@@ -80,12 +86,15 @@ def test_manifest_records_inputs_settings_and_solver(demo_run):
     assert "total" in manifest["timings_seconds"]
 
 
-def test_check_validates_without_writing(study, tmp_path, cli):
-    path = study()
-    result, version = cli(("check", path), ("--version",))
-    assert result.returncode == 0, result.stderr
-    assert re.match(r"landflow: .*study\.toml is valid: 47 landscape cells, 2 patches, 1 connected piece\(s\); "
-                    r"analyses: effective_resistance, current_density", result.stdout)
-    assert not (tmp_path / "results").exists()
+def test_check_validates_without_writing(demo_run):
+    study, _, _, check, _ = demo_run
+    assert check.returncode == 0, check.stderr
+    assert re.search(r"check_only\.toml is valid: [\d,]+ landscape cells, \d+ patches, 1 connected piece\(s\); "
+                     r"analyses: effective_resistance, current_density", check.stdout)
+    assert not (study.parent / "never_written").exists()
+
+
+def test_version(demo_run):
+    *_, version = demo_run
     assert version.returncode == 0
     assert version.stdout.strip() == f"landflow {lf.__version__}"
