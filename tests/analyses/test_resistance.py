@@ -71,3 +71,18 @@ def test_solver_backends_give_the_same_resistance(two_pieces):
     graph, voltages = two_pieces
     multigrid = lf.patch_voltages(graph, method="multigrid", tolerance=1e-12)
     np.testing.assert_allclose(lf.effective_resistance(multigrid), lf.effective_resistance(voltages), rtol=1e-6)
+
+
+def test_isolated_patch_escapes_with_probability_zero():
+    # patch 3 is a single cell walled in by nodata: it has no edges at all
+    values = np.ones((3, 5))
+    values[:, 3] = np.nan
+    values[0, 4] = values[2, 4] = np.nan
+    patches = np.zeros((3, 5), dtype=int)
+    patches[0, 0], patches[2, 2], patches[1, 4] = 1, 2, 3
+    graph = lf.build_graph(lf.Grid.from_array(values), patches)
+    table = lf.resistance_table(lf.patch_voltages(graph))
+    isolated = table[table.patch_b == 3]
+    assert np.isinf(isolated.resistance).all() and np.isinf(isolated.commute_time).all()
+    assert (isolated.escape_probability_a_to_b == 0).all() and (isolated.escape_probability_b_to_a == 0).all()
+    assert not table.isna().any().any()
