@@ -62,6 +62,25 @@ def test_geographic_crs(tif):
         read_grid(tif("degrees.tif", np.ones((3, 3), dtype="float32"), crs="EPSG:4326", cell=0.01))
 
 
+def test_raster_with_several_bands(tmp_path):
+    import rasterio
+    from affine import Affine
+    path = tmp_path / "two_bands.tif"
+    with rasterio.open(path, "w", driver="GTiff", height=3, width=3, count=2, dtype="float32", crs="EPSG:3035",
+                       transform=Affine(10, 0, 0, 0, -10, 0)) as dst:
+        dst.write(np.ones((2, 3, 3), dtype="float32"))
+    with pytest.raises(lf.InputError, match=r"two_bands\.tif: the resistance raster has 2 bands; landflow reads "
+                                            r"single-band rasters\. Extract the band you mean"):
+        read_grid(path, what="resistance raster")
+
+
+def test_not_a_raster(tmp_path):
+    path = tmp_path / "notes.tif"
+    path.write_text("this is not a raster")
+    with pytest.raises(lf.InputError, match=r"cannot read the resistance raster '.*notes\.tif'"):
+        read_grid(path, what="resistance raster")
+
+
 # --- patches --------------------------------------------------------------------------------------
 
 def test_fewer_than_two_patches_api(tif):
@@ -112,6 +131,14 @@ def test_patch_raster_with_fractional_labels(study, tif):
     with pytest.raises(lf.InputError, match=r"fractional\.tif: 1 cell\(s\) are not whole non-negative numbers.*"
                                             r"First at row 4, col 4"):
         lf.check_study(study(patches='raster = "fractional.tif"'))
+
+
+def test_negative_strength_raster(study, tif):
+    strength = np.zeros((6, 8), dtype="float32")
+    strength[1, 1] = -3.0
+    tif("strength.tif", strength)
+    with pytest.raises(lf.InputError, match=r"strength\.tif: strength must be >= 0; first negative at row 1, col 1"):
+        lf.check_study(study(patches='raster = "patches.tif"\nstrength_raster = "strength.tif"'))
 
 
 def _points(tmp_path, rows):
