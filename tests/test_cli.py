@@ -9,6 +9,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 import pytest
+import rasterio
 
 import landflow as lf
 from landflow.io.rasters import read_grid
@@ -64,7 +65,7 @@ def test_numbers_match_the_api(demo_run):
     matrix = pd.read_csv(out / "effective_resistance_matrix.csv", index_col=0)
     np.testing.assert_allclose(matrix.to_numpy(), lf.effective_resistance(voltages), rtol=1e-12)
     np.testing.assert_array_equal(matrix.index, graph.patch_ids)
-    with __import__("rasterio").open(out / "current_density.tif") as src:
+    with rasterio.open(out / "current_density.tif") as src:
         assert src.crs == grid.crs and src.transform == grid.transform
         current = src.read(1, masked=True)
     assert current.mask.sum() == (~grid.mask).sum()
