@@ -47,6 +47,9 @@ def main(argv=None):
     except LandflowError as exc:
         print(f"landflow: error: {exc}", file=sys.stderr)
         return 1
+    except OSError as exc:  # the file system refused (permissions, disk full): no traceback either
+        print(f"landflow: error: {exc}", file=sys.stderr)
+        return 1
     return 0
 
 

@@ -109,7 +109,7 @@ class Grid:
     def where(self, row, col):
         """A phrase locating a cell for error messages: row/col and map coordinates."""
         x, y = self.xy(row, col)
-        return f"row {row}, col {col} (x={x:.6g}, y={y:.6g})"
+        return f"row {row}, col {col} (x={x:.10g}, y={y:.10g})"
 
     def same_grid(self, other):
         """Describe how `other` differs from this grid, or return None when they match."""

@@ -69,7 +69,8 @@ class Solver:
                 self._lu = sla.splu(matrix.tocsc(), permc_spec="MMD_AT_PLUS_A",
                                     diag_pivot_thresh=0.0, options={"SymmetricMode": True})
             except RuntimeError as exc:  # singular: an ungrounded component
-                raise SolverError(f"direct factorisation failed: {exc}") from exc
+                raise SolverError(f"direct factorisation failed: {exc}. The system is singular: some part of "
+                                  "the graph is not tied to a grounded node (an ungrounded Laplacian).") from exc
         else:
             import pyamg
             self._ml = pyamg.smoothed_aggregation_solver(matrix.tocsr(), symmetry="symmetric")
@@ -94,9 +95,11 @@ class Solver:
         self.n_solved += 1 if b.ndim == 1 else b.shape[1]
         self.solve_seconds += time.perf_counter() - start
         if not residual <= limit:
+            fix = ("The system is singular or nearly so (an ungrounded part of the graph?)."
+                   if self.method == "direct" else "Try solver method 'direct' or a looser tolerance.")
             raise SolverError(
-                f"{self.method} solve reached relative residual {residual:.2e}, above {limit:.0e}. "
-                "Try solver method 'direct' or a looser tolerance.", residual=residual,
+                f"{self.method} solve reached relative residual {residual:.2e}, above {limit:.0e}. {fix}",
+                residual=residual,
                 iterations=self.iterations[-1] if self.iterations else None)
         return x
 

@@ -113,6 +113,7 @@ def effective_resistance(voltages):
     u = voltages.potential[:k, :k]
     d = np.diag(u)
     r = d[:, None] + d[None, :] - u - u.T
+    r = 0.5 * (r + r.T)             # exactly symmetric (rounding differs with the order of terms)
     same = voltages.component_of_patch[:, None] == voltages.component_of_patch[None, :]
     r = np.where(same, r, np.inf)
     np.fill_diagonal(r, 0.0)
@@ -143,11 +144,12 @@ def resistance_table(voltages, resistance=None):
     i, j, c = graph.edges
     volume = np.bincount(graph.components[i], weights=c, minlength=graph.components.max() + 1)
     vol_ab = volume[voltages.component_of_patch[a]]
-    with np.errstate(divide="ignore"):
+    apart = np.isinf(r)             # a walk never reaches the other patch, even from an isolated patch
+    with np.errstate(divide="ignore", invalid="ignore"):
         table = pd.DataFrame({
             "patch_a": graph.patch_ids[a], "patch_b": graph.patch_ids[b], "resistance": r,
-            "escape_probability_a_to_b": 1.0 / (c_out[a] * r),
-            "escape_probability_b_to_a": 1.0 / (c_out[b] * r),
-            "commute_time": 2.0 * vol_ab * r,
+            "escape_probability_a_to_b": np.where(apart, 0.0, 1.0 / (c_out[a] * r)),
+            "escape_probability_b_to_a": np.where(apart, 0.0, 1.0 / (c_out[b] * r)),
+            "commute_time": np.where(apart, np.inf, 2.0 * vol_ab * r),
         })
     return table

@@ -92,7 +92,7 @@ def read_patch_points(path, grid, *, strength_column=None):
     if (clash > 1).any():
         c = int(clash.index[clash > 1][0])
         r, q = divmod(c, grid.shape[1])
-        both = sorted(frame.loc[frame["cell"] == c, "id"].unique())
+        both = sorted(int(i) for i in frame.loc[frame["cell"] == c, "id"].unique())
         raise InputError(f"{path}: points with different ids {both} fall in the same cell at "
                          f"{grid.where(r, q)}. Merge them into one id or move one of them.")
     labels.reshape(-1)[cell] = ids.astype(np.int64)

@@ -246,10 +246,15 @@ def _check_steps(ctx):
 
 def _check_writable(study):
     folder = study.output_folder
-    parent = folder.parent
-    probe = parent
+    if folder.exists() and not folder.is_dir():
+        raise ConfigError(f"{study.path}: the output folder '{folder}' ('output.folder') is an existing file, "
+                          "not a folder. Choose another folder or move the file away.")
+    probe = folder.parent
     while not probe.exists():
         probe = probe.parent
+    if not probe.is_dir():
+        raise ConfigError(f"{study.path}: the output folder '{folder}' ('output.folder') cannot be made: "
+                          f"{probe} is a file, not a folder. Choose another folder.")
     if not os.access(probe, os.W_OK | os.X_OK) or (folder.exists() and not os.access(folder, os.W_OK)):
         raise ConfigError(f"{study.path}: the output folder '{folder}' ('output.folder') cannot be written "
                           f"({probe} is not writable). Choose another folder.")

@@ -1,0 +1,109 @@
+"""Reading and writing GeoTIFF: what goes in comes out, and failures leave no file behind."""
+
+import numpy as np
+import pytest
+import rasterio
+from affine import Affine
+
+import landflow as lf
+from landflow.io import rasters
+from landflow.io.rasters import NODATA, read_aligned, read_grid, write_geotiff
+
+
+def _grid(tif, shape, *, cell=(25.0, 30.0), nodata=-1.0):
+    values = np.random.default_rng(0).lognormal(size=shape).astype("float32")
+    values[0, 0] = nodata
+    return read_grid(tif("in.tif", values, nodata=nodata, cell=cell)), values
+
+
+@pytest.mark.parametrize("shape, tiled", [((7, 9), False), ((300, 280), True)])
+def test_round_trip_keeps_georeference_nodata_and_values(tmp_path, tif, shape, tiled):
+    grid, values = _grid(tif, shape)
+    assert not grid.mask[0, 0] and grid.mask.sum() == values.size - 1
+    out = np.where(grid.mask, grid.values * 3.0, np.nan)
+    write_geotiff(tmp_path / "out.tif", out, grid)
+    with rasterio.open(tmp_path / "out.tif") as src:
+        assert src.crs == rasterio.crs.CRS.from_epsg(3035)
+        assert src.transform == grid.transform == Affine(25.0, 0, 4_321_000.0, 0, -30.0, 3_210_000.0)
+        assert src.nodata == NODATA
+        assert src.dtypes == ("float32",)
+        assert src.count == 1 and src.shape == shape
+        assert src.profile["compress"] == "deflate"
+        assert src.profile.get("tiled", False) == tiled
+        if tiled:
+            assert src.block_shapes == [(256, 256)]
+        data = src.read(1)
+    np.testing.assert_array_equal(data[~grid.mask], NODATA)
+    np.testing.assert_array_equal(data[grid.mask], out[grid.mask].astype("float32"))
+    again = read_grid(tmp_path / "out.tif")
+    assert again.same_grid(grid) is None
+    np.testing.assert_array_equal(again.mask, grid.mask)
+
+
+def test_read_grid_marks_nodata_and_non_finite_cells(tif):
+    values = np.array([[1.0, np.nan, 3.0], [np.inf, 5.0, 6.0]])
+    no_nodata = read_grid(tif("a.tif", values))
+    assert no_nodata.nodata is None
+    np.testing.assert_array_equal(no_nodata.mask, [[True, False, True], [False, True, True]])
+    nan_nodata = read_grid(tif("b.tif", values, nodata=np.nan))
+    np.testing.assert_array_equal(nan_nodata.mask, [[True, False, True], [True, True, True]])
+    value_nodata = read_grid(tif("c.tif", values, nodata=3.0))
+    np.testing.assert_array_equal(value_nodata.mask, [[True, True, False], [True, True, True]])
+
+
+def test_read_grid_keeps_cell_size_and_crs(tif):
+    grid = read_grid(tif("a.tif", np.ones((3, 4), dtype="float32"), cell=(20.0, 50.0)))
+    assert grid.cell_size == (20.0, 50.0)
+    assert grid.crs.to_epsg() == 3035
+    x, y = grid.xy(0, 0)
+    assert (x, y) == (4_321_000.0 + 10.0, 3_210_000.0 - 25.0)
+    assert tuple(int(v) for v in grid.rowcol(x, y)) == (0, 0)
+
+
+def test_write_is_atomic(tmp_path, tif, monkeypatch):
+    grid, _ = _grid(tif, (5, 6))
+    target = tmp_path / "out.tif"
+    real_open = rasterio.open
+
+    class Broken:
+        """Opens the real file, then fails halfway through writing."""
+        def __init__(self, path, *args, **kwargs):
+            self.path = path
+            self.dataset = real_open(path, *args, **kwargs)
+
+        def __enter__(self):
+            return self
+
+        def write(self, *args):
+            self.dataset.close()
+            raise OSError("disk full (simulated)")
+
+        def __exit__(self, *exc):
+            self.dataset.close()
+
+    monkeypatch.setattr(rasters.rasterio, "open", Broken)
+    with pytest.raises(OSError, match="disk full"):
+        write_geotiff(target, grid.values, grid)
+    assert list(tmp_path.iterdir()) == [tmp_path / "in.tif"]        # neither the file nor a partial one
+
+    monkeypatch.undo()
+    write_geotiff(target, grid.values, grid)
+    before = target.read_bytes()
+    monkeypatch.setattr(rasters.rasterio, "open", Broken)
+    with pytest.raises(OSError, match="disk full"):
+        write_geotiff(target, grid.values * 2, grid)
+    assert target.read_bytes() == before                              # the earlier file is untouched
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["in.tif", "out.tif"]
+
+
+def test_write_rejects_an_array_of_another_shape(tmp_path, tif):
+    grid, _ = _grid(tif, (5, 6))
+    with pytest.raises(lf.InputError, match=r"array of shape \(6, 5\) does not fit the grid \(5, 6\)"):
+        write_geotiff(tmp_path / "out.tif", np.zeros((6, 5)), grid)
+    assert not (tmp_path / "out.tif").exists()
+
+
+def test_read_aligned_accepts_the_same_grid(tif):
+    grid, values = _grid(tif, (4, 5))
+    other = read_aligned(tif("other.tif", values * 2, nodata=-1.0, cell=(25.0, 30.0)), grid)
+    assert other.same_grid(grid) is None

@@ -1,0 +1,122 @@
+"""The solver interface: backends agree, failures raise SolverError, and record() reports what happened."""
+
+from contextlib import nullcontext
+
+import numpy as np
+import pytest
+import scipy.sparse as sp
+
+import landflow as lf
+from landflow.solve import DIRECT_MAX_UNKNOWNS, choose_method, factorize
+
+
+@pytest.fixture(scope="module")
+def grounded():
+    """The Laplacian of a 60 x 60 log-normal resistance surface (8 neighbours) grounded at node 0."""
+    values = np.random.default_rng(42).lognormal(0.0, 1.0, size=(60, 60))
+    laplacian = lf.build_graph(lf.Grid.from_array(values, cell_size=25.0)).laplacian()
+    return laplacian[1:, 1:]
+
+
+def _rhs(n, m=3):
+    b = np.zeros((n, m))
+    b[np.random.default_rng(0).choice(n, m, replace=False), np.arange(m)] = 1.0
+    return b
+
+
+class TestBackendsAgree:
+    def test_direct_and_multigrid_agree(self, grounded):
+        b = _rhs(grounded.shape[0])
+        direct = factorize(grounded, method="direct").solve(b)
+        multigrid = factorize(grounded, method="multigrid", tolerance=1e-10).solve(b)
+        assert np.max(np.abs(direct - multigrid)) <= 1e-6 * np.max(np.abs(direct))
+
+    def test_single_and_multiple_right_hand_sides(self, grounded):
+        b = _rhs(grounded.shape[0])
+        for method in ("direct", "multigrid"):
+            solver = factorize(grounded, method=method, tolerance=1e-10)
+            together = solver.solve(b)
+            assert together.shape == b.shape
+            column = solver.solve(b[:, 1])
+            assert column.shape == (b.shape[0],)
+            np.testing.assert_allclose(column, together[:, 1], rtol=1e-7, atol=1e-9)
+
+    def test_solution_satisfies_the_system(self, grounded):
+        b = _rhs(grounded.shape[0], 1)[:, 0]
+        x = factorize(grounded, method="direct").solve(b)
+        assert np.linalg.norm(grounded @ x - b) <= 1e-10 * np.linalg.norm(b)
+
+    def test_auto_picks_direct_up_to_the_limit(self, grounded):
+        assert choose_method(DIRECT_MAX_UNKNOWNS) == "direct"
+        assert choose_method(DIRECT_MAX_UNKNOWNS + 1) == "multigrid"
+        assert factorize(grounded).method == "direct"
+
+
+class TestFailures:
+    def test_exactly_singular_system_fails_to_factorise(self):
+        matrix = sp.csr_array(np.diag([1.0, 0.0, 2.0]))     # an isolated, ungrounded node
+        with pytest.raises(lf.SolverError, match=r"direct factorisation failed: .*singular.*grounded"):
+            factorize(matrix, method="direct")
+
+    def test_ungrounded_unit_laplacian_is_exactly_singular(self):
+        laplacian = lf.build_graph(lf.Grid.from_array(np.ones((6, 6)))).laplacian()
+        with pytest.raises(lf.SolverError, match="Factor is exactly singular. The system is singular"):
+            factorize(laplacian, method="direct")
+
+    def test_ungrounded_laplacian_fails_its_residual_check(self):
+        # with irrational conductances rounding hides the zero pivot; the residual check catches it
+        values = np.random.default_rng(0).lognormal(size=(6, 6))
+        laplacian = lf.build_graph(lf.Grid.from_array(values)).laplacian()
+        b = np.zeros(36)
+        b[0] = 1.0                                            # current in, none out: no solution
+        for method, fix in [("direct", "singular or nearly so"), ("multigrid", "Try solver method 'direct'")]:
+            solver = factorize(laplacian, method=method)
+            # pyamg's CG notices the indefinite system and warns (its own filter shows the warning always)
+            noticed = pytest.warns(UserWarning, match="Indefinite") if method == "multigrid" else nullcontext()
+            with noticed, pytest.raises(lf.SolverError, match=rf"{method} solve reached relative residual .*{fix}") as err:
+                solver.solve(b)
+            assert err.value.residual > 1e-6
+
+    def test_tolerance_that_cannot_be_met(self, grounded):
+        solver = factorize(grounded[:400, :400], method="multigrid", tolerance=1e-30)
+        with pytest.raises(lf.SolverError, match=r"multigrid solve reached relative residual .* above 1e-29\. "
+                                                 r"Try solver method 'direct' or a looser tolerance") as err:
+            solver.solve(np.ones(400))
+        assert err.value.iterations == 500
+        assert 0 < err.value.residual < 1e-6
+        assert isinstance(err.value, RuntimeError)            # catchable as a builtin, too
+
+    def test_unknown_method(self, grounded):
+        with pytest.raises(lf.SolverError, match="solver method must be one of auto, direct, multigrid; got 'fast'"):
+            factorize(grounded, method="fast")
+
+
+class TestRecord:
+    def test_direct(self, grounded):
+        solver = factorize(grounded, method="direct")
+        solver.solve(_rhs(grounded.shape[0], 3))
+        solver.solve(_rhs(grounded.shape[0], 1)[:, 0])
+        record = solver.record()
+        assert record["method"] == "direct"
+        assert record["unknowns"] == grounded.shape[0]
+        assert record["right_hand_sides"] == 4
+        assert 0 <= record["worst_relative_residual"] <= 1e-10
+        assert record["setup_seconds"] >= 0 and record["solve_seconds"] >= 0
+        assert "cg_iterations_max" not in record
+        assert repr(solver).startswith("Solver(method='direct', unknowns=3599, solved=4")
+
+    def test_multigrid(self, grounded):
+        solver = factorize(grounded, method="multigrid", tolerance=1e-8)
+        solver.solve(_rhs(grounded.shape[0], 2))
+        record = solver.record()
+        assert record["method"] == "multigrid"
+        assert record["right_hand_sides"] == 2
+        assert 0 < record["worst_relative_residual"] <= 1e-7
+        assert 0 < record["cg_iterations_max"] < 500
+        assert record["cg_iterations_max"] == max(solver.iterations) and len(solver.iterations) == 2
+
+    def test_record_is_json_ready(self, grounded):
+        import json
+        solver = factorize(grounded, method="direct")
+        solver.solve(np.ones(grounded.shape[0]))
+        assert json.loads(json.dumps(solver.record())) == solver.record()
