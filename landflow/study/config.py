@@ -12,7 +12,7 @@ from ..graph import EDGE_RULES, NEIGHBOURS
 from ..solve import METHODS
 from .schema import REQUIRED, Key, Section, close_match, validate_section
 
-__all__ = ["Study", "load_study", "SECTIONS"]
+__all__ = ["Study", "load_study", "read_study_file", "study_from_dict", "SECTIONS"]
 
 
 def _positive(value):
@@ -95,11 +95,15 @@ class Study:
         ``{section: {key: value}}`` for the fixed sections.
     analyses : dict
         ``{analysis name: {key: value}}`` in the order landflow runs them.
+    variation : dict
+        For one run of a sweep, ``{dotted key: value}`` of the swept settings;
+        empty otherwise.
     """
 
     path: Path | None
     settings: dict
     analyses: dict = field(default_factory=dict)
+    variation: dict = field(default_factory=dict)
 
     @property
     def output_folder(self):
@@ -124,13 +128,24 @@ def load_study(path):
         range or names a missing file. The message names the file and the key.
     """
     path = Path(path)
+    raw = read_study_file(path)
+    if "sweep" in raw:
+        raise ConfigError(f"{path}: the study declares a [sweep], which expands into several runs; run it with "
+                          f"'landflow run' or 'landflow batch', or from Python with landflow.study.sweep.expand_study.")
+    return study_from_dict(raw, base_dir=path.resolve().parent, source=str(path), path=path)
+
+
+def read_study_file(path):
+    """Parse a study file's TOML into a dict (no validation)."""
+    path = Path(path)
     try:
-        raw = tomllib.loads(path.read_text(encoding="utf-8"))
+        return tomllib.loads(path.read_text(encoding="utf-8"))
     except FileNotFoundError:
         raise ConfigError(f"study file '{path}' does not exist.") from None
+    except IsADirectoryError:
+        raise ConfigError(f"'{path}' is a folder; give the path of a study file (TOML).") from None
     except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
         raise ConfigError(f"{path}: not valid TOML: {exc}.") from None
-    return study_from_dict(raw, base_dir=path.resolve().parent, source=str(path), path=path)
 
 
 def study_from_dict(raw, *, base_dir=".", source="study", path=None):
@@ -138,11 +153,14 @@ def study_from_dict(raw, *, base_dir=".", source="study", path=None):
     from .steps import ANALYSES
 
     base_dir = Path(base_dir)
-    known = list(SECTIONS) + ["analyses"]
+    known = list(SECTIONS) + ["analyses", "sweep"]
     for name in raw:
         if name not in known:
             raise ConfigError(f"{source}: unknown table [{name}].{close_match(name, known)} "
                               f"Known tables: {', '.join(known)}.")
+    if "sweep" in raw:
+        raise ConfigError(f"{source}: a [sweep] table cannot be validated as one study; expand it first "
+                          "(landflow.study.sweep.expand_study).")
     settings = {}
     for name, section in SECTIONS.items():
         table = raw.get(name, {})

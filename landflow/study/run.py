@@ -293,6 +293,7 @@ def _manifest(ctx, seconds):
         "platform": platform.platform(),
         "inputs": [{"path": p, "sha256": h} for p, h in ctx.inputs.items()],
         "settings": ctx.study.resolved(),
+        "sweep": dict(ctx.study.variation) or None,
         "landscape": {"rows": graph.shape[0], "cols": graph.shape[1],
                       "cell_size": list(ctx.grid.cell_size),
                       "crs": ctx.grid.crs.to_string() if ctx.grid.crs else None,
