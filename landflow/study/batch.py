@@ -292,8 +292,11 @@ def _run_on_processes(todo, workers, outcomes, progress):
 
 
 def _run_on_dask(todo, client, scheduler, outcomes, progress):
-    from distributed import Client
-
+    try:
+        from distributed import Client
+    except ImportError:
+        raise ConfigError("running on a Dask cluster needs dask.distributed; install it with "
+                          "pip install 'landflow[dask]' (or pip install 'dask[distributed]').") from None
     own = client is None
     if own:
         try:
