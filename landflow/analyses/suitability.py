@@ -72,11 +72,12 @@ def resistance_from_suitability(suitability, *, scale=1.0, transform="linear", s
     ----------
     Keeley, A. T. H., Beier, P. & Gagnon, J. W. (2016). Estimating landscape
     resistance from habitat suitability: effects of data source and
-    nonlinearities. Landscape Ecology 31:2151-2162.
+    nonlinearities. Landscape Ecology 31:2151.
     https://doi.org/10.1007/s10980-016-0387-5 . The equation
-    ``R = 100 - 99 (1 - exp(-c h)) / (1 - exp(-c))`` with shape values
-    c = 0.25 ... 16 is the paper's; the linear form is its c -> 0 limit and
-    the common "resistance = 100 minus suitability" rule rescaled to 1-100.
+    ``R = 100 - 99 (1 - exp(-c h)) / (1 - exp(-c))`` is the paper's (as
+    reproduced by several independent users citing it; the range of shapes,
+    c = 0.25 to 16, from memory). The linear form is its c -> 0 limit and the
+    common "resistance = 100 minus suitability" rule rescaled to 1-100.
 
     Examples
     --------

@@ -50,8 +50,8 @@ SECTIONS = {
                                                     "R = Rmax - (Rmax - 1) (1 - exp(-c h)) / (1 - exp(-c)), "
                                                     "h = suitability / suitability_scale (Keeley, Beier & "
                                                     "Gagnon 2016)", choices=TRANSFORMS),
-        "suitability_shape": Key(float, None, "shape c of the negative exponential (the source uses 0.25 to 16; "
-                                              "larger c: resistance stays low until suitability is low)",
+        "suitability_shape": Key(float, None, "shape c of the negative exponential: near 0 almost linear, 8 or more "
+                                              "strongly nonlinear (resistance stays low until suitability is low)",
                                  check=_positive, unit="none", example=8.0),
         "suitability_max_resistance": Key(float, 100.0, "resistance of a cell of suitability 0 (a cell of "
                                                         "suitability 1 has resistance 1)",
