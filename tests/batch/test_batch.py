@@ -41,15 +41,18 @@ def test_batch_on_a_two_worker_local_cluster(landscape):
     with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=False, protocol="tcp",
                                   dashboard_address=None) as cluster:
         assert len(cluster.workers) == 2
-        args = ["batch", *studies, "--scheduler", cluster.scheduler_address, "--summary", summary]
-        first = run_cli(*args, cwd=landscape)
-        assert first.returncode == 1, first.stderr
+        # first from Python with a connected client, then through the command line with the address
+        stream = io.StringIO()
+        with distributed.Client(cluster) as client:
+            outcomes = run_batch(studies, client=client, summary=summary, stream=stream)
+        assert [o.status for o in outcomes] == ["done"] * 5 + ["failed"]
         table = pd.read_csv(summary, keep_default_na=False)
         assert list(table.columns) == ["run", "status", "seconds", "folder", "error"]
         assert list(table["run"]) == [f"study{i}" for i in range(6)]
         assert list(table["status"]) == ["done"] * 5 + ["failed"]
         assert "InputError" in table["error"][5] and "broken.tif: 1 cell(s) have a suitability outside 0-1" in table["error"][5]
-        assert "run study5 failed" in first.stderr and "5 done, 0 up to date, 1 failed" in first.stdout
+        assert "study5: FAILED: InputError: " in stream.getvalue()
+        assert stream.getvalue().splitlines()[-1].startswith("landflow batch: 5/6 done (0 up to date), 0 running, 1 failed")
         for i in range(5):
             assert json.loads((landscape / f"out{i}" / "manifest.json").read_text())["outputs"]
             assert table["folder"][i] == str(landscape / f"out{i}")
@@ -60,8 +63,10 @@ def test_batch_on_a_two_worker_local_cluster(landscape):
         # fix the broken input: the rerun does only that run
         with rasterio.open(landscape / "suitability.tif") as src:
             write_raster(landscape / "broken.tif", src.read(1))
+        args = ["batch", *studies, "--scheduler", cluster.scheduler_address, "--summary", summary]
         second = run_cli(*args, cwd=landscape)
         assert second.returncode == 0, second.stderr
+        assert "1 done, 5 up to date, 0 failed" in second.stdout
         table = pd.read_csv(summary, keep_default_na=False)
         assert list(table["status"]) == ["skipped"] * 5 + ["done"]
         assert (landscape / "out5" / "manifest.json").exists()
@@ -79,8 +84,7 @@ def test_sweep_on_local_processes_writes_the_comparison_table(landscape):
     "landscape.suitability_shape" = [0.5, 8]
     landscape.neighbours = [4, 8]
     """)
-    done = run_cli("batch", study, "--workers", "2", cwd=landscape)
-    assert done.returncode == 0, done.stderr
+    run_batch([study], workers=2, summary=landscape / "batch_summary.csv", stream=io.StringIO())
     summary = pd.read_csv(landscape / "batch_summary.csv", keep_default_na=False)
     names = ["suitability_shape-0.5_neighbours-4", "suitability_shape-0.5_neighbours-8",
              "suitability_shape-8_neighbours-4", "suitability_shape-8_neighbours-8"]
