@@ -72,6 +72,17 @@ def ponds(resistance, seed=SEED):
     return labels, population
 
 
+def suitability(resistance, seed=SEED):
+    """Habitat suitability on 0-1 for the sweep demo: high in woodland, low on the road (invented)."""
+    rng = np.random.default_rng(seed + 2)
+    by_cover = {1.0: 0.95, 2.0: 0.8, 4.0: 0.55, 10.0: 0.25, 40.0: 0.05, 150.0: 0.01}
+    values = np.full(resistance.shape, np.nan)
+    for cover, value in by_cover.items():
+        values[resistance == cover] = value
+    noise = rng.uniform(-0.04, 0.04, resistance.shape)
+    return np.where(np.isnan(values), np.nan, np.clip(values + noise, 0.0, 1.0))
+
+
 def write(name, array, dtype, nodata):
     profile = {"driver": "GTiff", "height": ROWS, "width": COLS, "count": 1, "dtype": dtype,
                "crs": CRS, "transform": TRANSFORM, "nodata": nodata, "compress": "deflate"}
@@ -86,6 +97,7 @@ def main():
     write("resistance.tif", resistance, "float32", -9999.0)
     write("ponds.tif", labels, "uint8", 0)
     write("pond_population.tif", population, "float32", -9999.0)
+    write("suitability.tif", suitability(resistance), "float32", -9999.0)
     print(f"wrote demo rasters to {HERE}")
 
 
