@@ -16,6 +16,7 @@ __version__ = "0.1.0"
 
 from .analyses.current import cumulative_current, edge_current, pair_current, pair_weights
 from .analyses.resistance import PatchVoltages, effective_resistance, patch_voltages, resistance_table
+from .analyses.suitability import resistance_from_suitability
 from .errors import ConfigError, InputError, LandflowError, SolverError
 from .graph import CellGraph, build_graph, landscape_mask
 from .grid import Grid
@@ -36,6 +37,12 @@ def check_study(study):
     return _check(study)
 
 
+def run_batch(study_files, **kwargs):
+    """Run many studies and sweeps, locally or on a Dask cluster; see :func:`landflow.study.batch.run_batch`."""
+    from .study.batch import run_batch as _batch
+    return _batch(study_files, **kwargs)
+
+
 def read_grid(path, **kwargs):
     """Read a single-band raster into a Grid; see :func:`landflow.io.rasters.read_grid`."""
     from .io.rasters import read_grid as _read
@@ -46,6 +53,7 @@ __all__ = [
     "__version__", "Grid", "CellGraph", "build_graph", "landscape_mask", "Solver", "factorize",
     "PatchVoltages", "patch_voltages", "effective_resistance", "resistance_table",
     "edge_current", "pair_current", "pair_weights", "cumulative_current",
-    "run_study", "check_study", "read_grid",
+    "resistance_from_suitability",
+    "run_study", "check_study", "run_batch", "read_grid",
     "LandflowError", "InputError", "ConfigError", "SolverError",
 ]

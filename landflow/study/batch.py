@@ -288,7 +288,11 @@ def _run_on_processes(todo, workers, outcomes, progress):
     # spawn: a clean interpreter per worker, safe whatever threads this process holds
     with ProcessPoolExecutor(max_workers=workers, mp_context=multiprocessing.get_context("spawn")) as pool:
         pending = {pool.submit(execute_run, run.study): run for run in todo}
-        _collect(pending, workers, outcomes, progress, result_of)
+        try:
+            _collect(pending, workers, outcomes, progress, result_of)
+        except BaseException:   # interrupted: drop the queued runs; running ones clean up after themselves
+            pool.shutdown(wait=False, cancel_futures=True)
+            raise
 
 
 def _run_on_dask(todo, client, scheduler, outcomes, progress):
@@ -315,7 +319,11 @@ def _run_on_dask(todo, client, scheduler, outcomes, progress):
 
         pending = {client.submit(execute_run, run.study, key=f"landflow-{run.name}-{time.time_ns()}",
                                  pure=False): run for run in todo}
-        _collect(pending, slots, outcomes, progress, result_of)
+        try:
+            _collect(pending, slots, outcomes, progress, result_of)
+        except BaseException:
+            client.cancel(list(pending))
+            raise
     finally:
         if own:
             client.close()
