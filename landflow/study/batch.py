@@ -29,6 +29,9 @@ __all__ = ["RunOutcome", "plan_batch", "run_batch", "is_up_to_date", "Progress",
 
 SUMMARY_COLUMNS = ["run", "status", "seconds", "folder", "error"]
 
+#: How long to wait for a Dask scheduler to answer.
+CONNECT_TIMEOUT = "20s"
+
 
 @dataclass
 class RunOutcome:
@@ -158,6 +161,8 @@ class Progress:
 
     def event(self, outcome):
         """Record a finished run (done, skipped or failed) and show it."""
+        if outcome.status != "skipped":
+            self.running = max(0, self.running - 1)
         if outcome.status == "done":
             self.done += 1
         elif outcome.status == "skipped":
@@ -304,8 +309,8 @@ def _run_on_dask(todo, client, scheduler, outcomes, progress):
     own = client is None
     if own:
         try:
-            client = Client(scheduler, timeout="20s")
-        except OSError as exc:
+            client = Client(scheduler, timeout=CONNECT_TIMEOUT)
+        except (OSError, ValueError) as exc:
             raise ConfigError(f"cannot reach the Dask scheduler at '{scheduler}': {exc}. Check the address "
                               "(for example tcp://host:8786) and that the scheduler is running.") from None
     try:

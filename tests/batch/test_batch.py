@@ -157,3 +157,13 @@ class TestProgress:
         text = out.getvalue()
         assert text.count("\n") == 2             # the finished run, then the final status
         assert "\r\x1b[K" in text and "1 running" in text and "a: up to date, skipped" in text
+
+
+@pytest.mark.parametrize("address, message", [("tcp://127.0.0.1:1", "Timed out"), ("foo://x:1", "unknown address scheme")])
+def test_unreachable_scheduler(landscape, tmp_path, monkeypatch, address, message):
+    pytest.importorskip("distributed")
+    import landflow.study.batch as batch
+    monkeypatch.setattr(batch, "CONNECT_TIMEOUT", "1s")
+    study = write_study(landscape / "a.toml", study_text())
+    with pytest.raises(ValueError, match=rf"cannot reach the Dask scheduler at '{address}': .*{message}.*Check the address"):
+        run_batch([study], scheduler=address, summary=tmp_path / "s.csv", stream=io.StringIO())
