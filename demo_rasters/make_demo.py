@@ -6,6 +6,7 @@ The landscape is 240 x 320 cells of 25 m (6 x 8 km) in ETRS89 / UTM zone 32N.
 Resistance per metre of travel (invented, for illustration only):
 woodland 1, hedgerows and stream banks 2, pasture 4, arable 10,
 farmyards and villages 40, the road 150. Ponds are the patches.
+Per-step death probability of a dispersing walker (invented): 0.3 on the road, 0.001 elsewhere.
 
 Run:  python demo_rasters/make_demo.py   (writes next to this script)
 """
@@ -72,6 +73,23 @@ def ponds(resistance, seed=SEED):
     return labels, population
 
 
+def with_underpass(resistance, road, dist_stream):
+    """The landscape after an (invented) wildlife underpass: the road cells where the stream
+    passes under the road get stream-bank resistance (2), as if a wide culvert with dry ledges
+    were built there. For the what-if scenario of the demo study."""
+    changed = resistance.copy()
+    underpass = road & (dist_stream < 3.0)
+    changed[underpass] = 2.0
+    return changed
+
+
+def road_mortality(resistance, road):
+    """Invented per-step death probability: 0.3 on the road, 0.001 elsewhere (nodata outside the landscape)."""
+    mortality = np.where(road, 0.3, 0.001).astype(np.float32)
+    mortality[~np.isfinite(resistance)] = np.nan
+    return mortality
+
+
 def suitability(resistance, seed=SEED):
     """Habitat suitability on 0-1 for the sweep demo: high in woodland, low on the road (invented)."""
     rng = np.random.default_rng(seed + 2)
@@ -97,6 +115,8 @@ def main():
     write("resistance.tif", resistance, "float32", -9999.0)
     write("ponds.tif", labels, "uint8", 0)
     write("pond_population.tif", population, "float32", -9999.0)
+    write("resistance_with_underpass.tif", with_underpass(*landscape()), "float32", -9999.0)
+    write("road_mortality.tif", road_mortality(resistance, road), "float32", -9999.0)
     write("suitability.tif", suitability(resistance), "float32", -9999.0)
     print(f"wrote demo rasters to {HERE}")
 

@@ -14,11 +14,18 @@ import logging
 
 __version__ = "0.1.0"
 
+from .analyses.absorption import (AbsorbingWalk, StrandedWalkWarning, absorbing_walk, absorption_probability,
+                                  arrival_table, expected_steps, expected_visits, hitting_probability,
+                                  mortality_from_resistance, most_likely_destination, release_expected_steps)
 from .analyses.current import cumulative_current, edge_current, pair_current, pair_weights
+from .analyses.least_cost import LeastCost, least_cost, least_cost_table
+from .analyses.priority import (connectivity, corridor, corridor_ranking, link_conductance, objective_weights,
+                                restoration_gain, scenario_change)
 from .analyses.resistance import PatchVoltages, effective_resistance, patch_voltages, resistance_table
+from .analyses.simulate import WalkSample, simulate_walks
 from .analyses.suitability import resistance_from_suitability
 from .errors import ConfigError, InputError, LandflowError, SolverError
-from .graph import CellGraph, build_graph, landscape_mask
+from .graph import CellGraph, build_graph, cell_edges, landscape_mask
 from .grid import Grid
 from .solve import Solver, factorize
 
@@ -53,7 +60,12 @@ __all__ = [
     "__version__", "Grid", "CellGraph", "build_graph", "landscape_mask", "Solver", "factorize",
     "PatchVoltages", "patch_voltages", "effective_resistance", "resistance_table",
     "edge_current", "pair_current", "pair_weights", "cumulative_current",
+    "AbsorbingWalk", "absorbing_walk", "hitting_probability", "absorption_probability", "most_likely_destination",
+    "arrival_table", "expected_steps", "release_expected_steps", "expected_visits", "mortality_from_resistance",
+    "simulate_walks", "WalkSample", "StrandedWalkWarning",
     "resistance_from_suitability",
     "run_study", "check_study", "run_batch", "read_grid",
+    "cell_edges", "connectivity", "link_conductance", "corridor_ranking", "corridor", "objective_weights",
+    "restoration_gain", "scenario_change", "LeastCost", "least_cost", "least_cost_table",
     "LandflowError", "InputError", "ConfigError", "SolverError",
 ]

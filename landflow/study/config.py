@@ -35,6 +35,10 @@ def _suitability_rules(land):
     return None
 
 
+def _non_negative(value):
+    return None if value >= 0 else "must be 0 or more"
+
+
 SECTIONS = {
     "landscape": Section({
         "resistance": Key(str, None, "raster of resistance per unit length; nodata = outside", path="input",
@@ -71,6 +75,14 @@ SECTIONS = {
         "strength_raster": Key(str, None, "raster summed over each patch's cells to give its strength", path="input",
                                unit="strength per cell", example="population.tif"),
     }, "Habitat patches or sample sites.", exactly_one=(("raster", "points"),)),
+    "mortality": Section({
+        "raster": Key(str, None, "raster of per-step death probability in [0, 1) on the landscape's grid; "
+                                 "nodata = 0", path="input"),
+        "death_per_resistance": Key(float, None, "instead of a raster: death probability per step "
+                                                 "1 - exp(-value x resistance of the cell)", check=_non_negative,
+                                    unit="1 / resistance unit"),
+    }, "Optional death of walkers on the way, used by the absorbing-walk analyses. Give at most one key; "
+       "mortality on patch cells is ignored."),
     "solver": Section({
         "method": Key(str, "auto", "linear solver: auto, direct (sparse LU) or multigrid (AMG + CG)", choices=METHODS),
         "tolerance": Key(float, 1e-8, "relative residual target of iterative solves", check=_positive,

@@ -10,6 +10,8 @@ import platform
 import shutil
 import sys
 import time
+import warnings
+from contextlib import contextmanager
 from functools import cached_property
 from importlib import metadata
 from pathlib import Path
@@ -51,6 +53,7 @@ class RunContext:
         self.timings = {}
         self.inputs = {}
         self.summary = {}
+        self.solvers = []
         self._load()
 
     # -- inputs ---------------------------------------------------------------
@@ -130,6 +133,54 @@ class RunContext:
             return patch_voltages(self.graph, method=solver["method"], tolerance=solver["tolerance"],
                                   progress=log.info)
 
+    @cached_property
+    def mortality(self):
+        """Per-cell death probability per step from [mortality] (checked), or None."""
+        spec = self.study.settings.get("mortality") or {}
+        raster, rate = spec.get("raster"), spec.get("death_per_resistance")
+        if raster is not None and rate is not None:
+            raise ConfigError(f"{self.study.path}: [mortality] has both 'raster' and 'death_per_resistance'; "
+                              "give one of them.")
+        from ..analyses.absorption import check_mortality, mortality_from_resistance
+        if raster is not None:
+            grid = self.read_aligned(raster, "mortality raster")
+            values = np.where(grid.mask, grid.values, 0.0)
+            return check_mortality(values, self.graph, source=str(raster), where=self.grid.where)
+        if rate is not None:
+            inside = self.graph.node_of_cell >= 0
+            values = np.where(inside, self.grid.values, 1.0)
+            resistance = values if self.kind == "resistance" else 1.0 / values
+            return mortality_from_resistance(np.where(inside, resistance, 0.0), rate)
+        return None
+
+    @cached_property
+    def absorbing_walk(self):
+        """The walk with every patch absorbing and the study's mortality, factorised once and shared."""
+        from ..analyses.absorption import absorbing_walk, absorption_probability
+        solver = self.study.settings["solver"]
+        spec = self.study.settings.get("mortality") or {}
+        mortality = self.mortality
+        with self.timed("solve absorbing walk"), self.forward_warnings():
+            walk = absorbing_walk(self.graph, mortality, method=solver["method"], tolerance=solver["tolerance"],
+                                  source=str(spec.get("raster") or "mortality"), where=self.grid.where)
+            absorption_probability(walk)  # solve the patch and death columns now, inside the timer
+        if walk.solver is not None:
+            self.solvers.append(walk.solver)
+        return walk
+
+    @contextmanager
+    def forward_warnings(self):
+        """Record landflow warnings raised inside the block in the run's warnings."""
+        from ..analyses.absorption import StrandedWalkWarning
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always", StrandedWalkWarning)
+            yield
+        for w in caught:
+            if issubclass(w.category, StrandedWalkWarning):
+                self.warn(str(w.message))
+            else:
+                warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
+
     # -- outputs -------------------------------------------------------------
     def warn(self, message):
         log.warning(message)
@@ -194,10 +245,21 @@ def check_study(study):
     study = study if isinstance(study, Study) else load_study(study)
     ctx = RunContext(study, study.output_folder)
     _check_writable(study)
+    _check_steps(ctx)
     graph = ctx.graph
     return {"cells": int((graph.node_of_cell >= 0).sum()), "nodes": graph.n_nodes,
             "patches": graph.n_patches, "pieces": int(graph.components.max()) + 1,
             "analyses": list(study.analyses), "warnings": ctx.warnings}
+
+
+def _check_steps(ctx):
+    """Let each requested step validate its settings against the inputs before any step runs."""
+    from .steps import ANALYSES
+    ctx.mortality  # reads and checks the [mortality] input, if any
+    for name, settings in ctx.study.analyses.items():
+        check = getattr(ANALYSES[name], "check", None)
+        if check is not None:
+            check(ctx, settings)
 
 
 def _check_writable(study):
@@ -244,6 +306,7 @@ def run_study(study):
     started = time.perf_counter()
     try:
         ctx = RunContext(study, tmp)
+        _check_steps(ctx)
         if study.settings["landscape"].get("suitability") is not None:
             ctx.write_raster("resistance_from_suitability.tif", np.where(ctx.grid.mask, ctx.grid.values, np.nan),
                              per_node=False, units="resistance per map unit",
@@ -285,6 +348,7 @@ def _manifest(ctx, seconds):
             pass
     graph = ctx.graph
     solvers = [s.record() for s in ctx.voltages.solvers] if "voltages" in ctx.__dict__ else []
+    solvers += [s.record() for s in ctx.solvers]
     return {
         "landflow_version": __version__,
         "study_file": str(ctx.study.path) if ctx.study.path else None,

@@ -1,0 +1,43 @@
+"""Study step: least-cost distance and least-cost paths between patches."""
+
+import numpy as np
+
+from ...analyses.least_cost import least_cost, least_cost_table
+from ...analyses.resistance import effective_resistance
+from ...graph import cell_edges
+from ..schema import Key, Section
+
+NAME = "least_cost_paths"
+SETTINGS = Section({
+    "per_pair": Key(bool, False, "also write the cheapest route of each pair (least_cost_paths/path_A_B.tif)"),
+}, "The single cheapest route between every pair of patches, on the same edges as the circuit, beside the "
+   "effective resistance. Writes least_cost_distance.csv and least_cost_paths.tif.")
+
+
+def run(ctx, settings):
+    land = ctx.study.settings["landscape"]
+    graph = ctx.graph
+    edges = cell_edges(ctx.grid, kind=ctx.kind, neighbours=land["neighbours"], edge_rule=land["edge_rule"])
+    result = least_cost(graph, edges)
+    resistance = effective_resistance(ctx.voltages)
+    ctx.write_table("least_cost_distance.csv", least_cost_table(result, resistance),
+                    description="least-cost distance, route length and cells of the cheapest route of every "
+                                "pair, with effective resistance and their ratio",
+                    units="resistance x map unit; map units; cells; 1")
+    count = result.path_count()
+    cells = ctx.write_raster("least_cost_paths.tif", count, units="number of pairs",
+                             description="how many pairs' cheapest routes pass each cell (patch cells: "
+                                         "routes that start, end or pass there)")
+    ctx.quicklook("least_cost_paths.png", np.where(cells > 0, cells, np.nan), title="Least-cost paths",
+                  units="number of pairs", log_scale=False)
+    if settings["per_pair"]:
+        ids = graph.patch_ids
+        k = graph.n_patches
+        for a in range(k):
+            for b in range(a + 1, k):
+                nodes = result.path(a, b)
+                if nodes.size:
+                    on = np.zeros(graph.n_nodes)
+                    on[nodes] = 1.0
+                    ctx.write_raster(f"least_cost_paths/path_{ids[a]}_{ids[b]}.tif", on, units="1 on the route",
+                                     description=f"cheapest route between patches {ids[a]} and {ids[b]}")

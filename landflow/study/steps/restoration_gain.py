@@ -1,0 +1,57 @@
+"""Study step: where lowering resistance would most lower effective resistance."""
+
+import numpy as np
+import pandas as pd
+
+from ...analyses.priority import objective_weights, restoration_gain
+from ...errors import ConfigError, InputError
+from ..schema import Key, Section
+from ._pairs import check_pair_list, resolve_pairs
+
+NAME = "restoration_gain"
+SETTINGS = Section({
+    "pairs": Key(list, [], "the objective: the sum of effective resistance over these patch pairs, e.g. "
+                           "[[1, 2]]; empty = every connected pair, weighted", check=check_pair_list),
+    "weight_by_strength": Key(bool, True, "with every pair, weight each by the product of the patches' "
+                                          "strengths (when strengths are given)"),
+    "top_cells": Key(int, 20, "cells listed in restoration_gain_cells.csv",
+                     check=lambda v: None if v >= 1 else "must be at least 1"),
+}, "Restoration gain: for every cell, the first-order drop of the objective (effective resistance of one "
+   "pair or a weighted sum over pairs) per unit reduction of the cell's resistance (per unit increase of "
+   "conductance on a conductance surface). Writes restoration_gain.tif, restoration_gain_relative.tif and "
+   "restoration_gain_cells.csv.")
+
+
+def check(ctx, settings):
+    resolve_pairs(ctx, settings["pairs"], "analyses.restoration_gain.pairs")
+
+
+def run(ctx, settings):
+    voltages = ctx.voltages
+    pairs = resolve_pairs(ctx, settings["pairs"], "analyses.restoration_gain.pairs")
+    strength = ctx.strength if settings["weight_by_strength"] and pairs is None else None
+    try:
+        weights = objective_weights(voltages, pairs, strength)
+    except InputError as exc:
+        raise ConfigError(f"{ctx.study.path or 'study'}: 'analyses.restoration_gain.pairs': {exc}") from None
+    gain = restoration_gain(voltages, ctx.grid, weights, kind=ctx.kind)
+    per = "reduction of resistance" if ctx.kind == "resistance" else "increase of conductance"
+    units = f"objective units per unit {per} (map units x pair weight for a resistance surface)"
+    ctx.write_raster("restoration_gain.tif", gain, per_node=False, units=units,
+                     description=f"first-order drop of the objective per unit {per} of each cell")
+    relative = gain * np.where(ctx.graph.node_of_cell >= 0, ctx.grid.values, np.nan)
+    ctx.write_raster("restoration_gain_relative.tif", relative, per_node=False,
+                     units="objective units (resistance x map unit x pair weight)",
+                     description="gain times the cell's own value: the first-order drop of the objective if "
+                                 f"the cell's value changed by 100% (f times this for a fraction f)")
+    ctx.quicklook("restoration_gain.png", gain, title="Restoration gain", units=units)
+    flat = np.nan_to_num(gain, nan=-np.inf).reshape(-1)
+    top = np.argsort(-flat, kind="stable")[: settings["top_cells"]]
+    rows, cols = np.unravel_index(top, gain.shape)
+    x, y = ctx.grid.xy(rows, cols)
+    patch = ctx.patches.labels[rows, cols]
+    ctx.write_table("restoration_gain_cells.csv", pd.DataFrame({
+        "row": rows, "col": cols, "x": x, "y": y, "value": ctx.grid.values[rows, cols],
+        "gain": gain[rows, cols], "relative_gain": relative[rows, cols], "patch": patch}),
+        description="the cells with the largest restoration gain, with map coordinates of their centres",
+        units="row/col; map units; surface unit; as restoration_gain.tif; patch label (0 = none)")

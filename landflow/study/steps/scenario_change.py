@@ -1,0 +1,68 @@
+"""Study step: re-solve on a changed landscape and report what changes."""
+
+import logging
+
+from ...analyses.current import pair_weights
+from ...analyses.priority import scenario_change
+from ...analyses.resistance import patch_voltages
+from ...errors import InputError
+from ...graph import build_graph
+from ..schema import REQUIRED, Key, Section
+
+log = logging.getLogger("landflow")
+
+NAME = "scenario_change"
+SETTINGS = Section({
+    "changed_landscape": Key(str, REQUIRED, "the landscape raster after the planned change (same kind, "
+                                            "resistance or conductance, and same grid as [landscape])",
+                             path="input"),
+    "weight_by_strength": Key(bool, True, "weight pairs in the cumulative current by the product of the "
+                                          "patches' strengths (when strengths are given)"),
+}, "What-if: solves again on a changed landscape raster (for example a planned underpass or a new road) "
+   "and reports the change of every pair's effective resistance and of cumulative current. Writes "
+   "scenario_change.csv and scenario_current_change.tif.")
+
+_KEY = "analyses.scenario_change.changed_landscape"
+
+
+def _changed_grid(ctx, settings):
+    try:
+        return ctx.read_aligned(settings["changed_landscape"], f"changed {ctx.kind} raster ('{_KEY}')")
+    except InputError as exc:
+        raise InputError(f"{ctx.study.path or 'study'}: '{_KEY}': {exc}") from None
+
+
+def check(ctx, settings):
+    _changed_grid(ctx, settings)
+
+
+def run(ctx, settings):
+    land = ctx.study.settings["landscape"]
+    solver = ctx.study.settings["solver"]
+    grid = _changed_grid(ctx, settings)
+    try:
+        graph = build_graph(grid, ctx.patches.labels, kind=ctx.kind, neighbours=land["neighbours"],
+                            edge_rule=land["edge_rule"])
+    except InputError as exc:
+        raise InputError(f"{ctx.study.path or 'study'}: '{_KEY}': {exc}") from None
+    after = patch_voltages(graph, method=solver["method"], tolerance=solver["tolerance"], progress=log.info)
+    strength = ctx.strength if settings["weight_by_strength"] else None
+    before = ctx.voltages
+    table, change, totals = scenario_change(before, after, pair_weights(before, strength),
+                                            pair_weights(after, strength))
+    ctx.write_table("scenario_change.csv", table,
+                    description="effective resistance of every pair before and after the change",
+                    units="resistance x map unit; percent")
+    ctx.write_raster("scenario_current_change.tif", change, per_node=False,
+                     units="A (cumulative current after minus before)",
+                     description="change of the cumulative current through each cell caused by the change")
+    ctx.quicklook("scenario_current_change.png", change, title="Change of cumulative current",
+                  units="A", log_scale=False)
+    worst = after.solvers[0].record() if after.solvers else {}
+    before_c, after_c = totals["connectivity_before"], totals["connectivity_after"]
+    ctx.summary["scenario: overall connectivity before / after"] = (
+        f"{before_c:.4g} / {after_c:.4g} ({100 * (after_c - before_c) / before_c:+.2f}%)"
+        if before_c > 0 else f"{before_c:.4g} / {after_c:.4g}")
+    if worst:
+        ctx.summary["scenario solver"] = (f"{worst['method']}, worst relative residual "
+                                          f"{worst['worst_relative_residual']:.1e}")
