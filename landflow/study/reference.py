@@ -137,11 +137,13 @@ def _table(section, table=""):
     return lines + [""]
 
 
-def _example_value(key):
+def _example_value(name, key):
     if key.example is not None:
         return key.example
     if key.default not in (None, REQUIRED):
         return key.default
+    if key.path == "input":
+        return f"{name}.tif"
     if key.choices:
         return key.choices[0]
     return {bool: True, int: 1, float: 1.0, str: "...", list: []}.get(key.type, "...")
@@ -151,7 +153,7 @@ def _example(name, step):
     lines = ["```toml", "[landscape]", 'resistance = "resistance.tif"', "", "[patches]", 'raster = "patches.tif"', "",
              f"[analyses.{name}]"]
     for key_name, key in step.SETTINGS.keys.items():
-        lines.append(f"{key_name} = {toml_value(_example_value(key))}")
+        lines.append(f"{key_name} = {toml_value(_example_value(key_name, key))}")
     return lines + ["```", ""]
 
 
