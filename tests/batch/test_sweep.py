@@ -80,3 +80,9 @@ def test_check_validates_every_run(landscape, capsys):
     assert main(["check", "-q", str(sweep_study(landscape, '"landscape.neighbours" = [4, 8]\n'))]) == 0
     assert "a sweep of 2 runs: neighbours-4, neighbours-8" in capsys.readouterr().out
     assert not (landscape / "swept").exists()
+
+
+def test_a_mortality_scale(landscape):
+    runs = expand_study(sweep_study(landscape, '"mortality.death_per_resistance" = [0.001, 0.01]\n'))
+    assert [r.run_name for r in runs] == ["death_per_resistance-0.001", "death_per_resistance-0.01"]
+    assert runs[1].study.settings["mortality"]["death_per_resistance"] == 0.01
