@@ -1,4 +1,4 @@
-"""Fixtures of the study and batch tests; the helpers live in batch_helpers.py beside this file."""
+"""Fixtures of the study and batch tests; the shared functions live in study_fixtures.py beside this file."""
 
 import sys
 from pathlib import Path
@@ -7,7 +7,7 @@ import pytest
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 
-from batch_helpers import make_landscape  # noqa: E402
+from study_fixtures import make_landscape  # noqa: E402
 
 
 @pytest.fixture

@@ -9,7 +9,7 @@ import time
 
 import numpy as np
 
-from batch_helpers import ROOT, study_text, write_raster, write_study
+from study_fixtures import ROOT, study_text, write_raster, write_study
 from landflow.study.batch import is_up_to_date
 from landflow.study.config import load_study
 

@@ -12,7 +12,7 @@ import pandas as pd
 import pytest
 import rasterio
 
-from batch_helpers import run_cli, study_text, write_raster, write_study
+from study_fixtures import run_cli, study_text, write_raster, write_study
 from landflow.study.batch import Progress, RunOutcome, run_batch
 
 SETTINGS = [

@@ -7,7 +7,7 @@ import numpy as np
 import pytest
 import rasterio
 
-from batch_helpers import study_text, write_study
+from study_fixtures import study_text, write_study
 from landflow.study.run import run_study
 
 

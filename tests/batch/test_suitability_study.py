@@ -5,7 +5,7 @@ import pandas as pd
 import pytest
 import rasterio
 
-from batch_helpers import study_text, write_raster, write_study
+from study_fixtures import study_text, write_raster, write_study
 from landflow.analyses.suitability import resistance_from_suitability
 from landflow.errors import ConfigError
 from landflow.study.config import load_study

@@ -2,7 +2,7 @@
 
 import pytest
 
-from batch_helpers import study_text, write_study
+from study_fixtures import study_text, write_study
 from landflow.cli import main
 from landflow.errors import ConfigError
 from landflow.study.config import load_study

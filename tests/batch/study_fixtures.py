@@ -1,4 +1,4 @@
-"""Helpers for the study and batch tests: small invented landscapes written to disk, and study files over them, for the study and batch tests."""
+"""Shared functions of the study and batch tests: small invented landscapes and study files over them."""
 
 import subprocess
 import sys
