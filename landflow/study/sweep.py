@@ -8,7 +8,7 @@ A ``[sweep]`` table maps dotted setting names to lists of values::
 
 Every combination (here 3 x 2 = 6) becomes a run named after its values
 (``suitability_shape-2_neighbours-4``) whose outputs go to its own folder
-inside the study's ``output.folder``. All runs are validated before any runs.
+inside the study's ``output.folder``. Every run is validated before any starts.
 """
 
 from __future__ import annotations
@@ -116,11 +116,8 @@ def expand_study(path, *, name=None):
             _set_dotted(study_raw, key, value)
         study_raw.setdefault("output", {})["folder"] = str(sweep_folder / run)
         described = ", ".join(f"{k} = {v!r}" for k, v in zip(keys, combo))
-        try:
-            study = study_from_dict(study_raw, base_dir=base_dir, source=f"{source} (sweep run '{run}': {described})",
-                                    path=path)
-        except ConfigError as exc:
-            raise ConfigError(str(exc)) from None
+        study = study_from_dict(study_raw, base_dir=base_dir, source=f"{source} (sweep run '{run}': {described})",
+                                path=path)
         study.variation = {key: _resolved(study, key) for key in keys}
         runs.append(StudyRun(f"{name}/{run}", study, path, sweep_folder))
     if "effective_resistance" not in runs[0].study.analyses:
