@@ -90,6 +90,17 @@ def road_mortality(resistance, road):
     return mortality
 
 
+def suitability(resistance, seed=SEED):
+    """Habitat suitability on 0-1 for the sweep demo: high in woodland, low on the road (invented)."""
+    rng = np.random.default_rng(seed + 2)
+    by_cover = {1.0: 0.95, 2.0: 0.8, 4.0: 0.55, 10.0: 0.25, 40.0: 0.05, 150.0: 0.01}
+    values = np.full(resistance.shape, np.nan)
+    for cover, value in by_cover.items():
+        values[resistance == cover] = value
+    noise = rng.uniform(-0.04, 0.04, resistance.shape)
+    return np.where(np.isnan(values), np.nan, np.clip(values + noise, 0.0, 1.0))
+
+
 def write(name, array, dtype, nodata):
     profile = {"driver": "GTiff", "height": ROWS, "width": COLS, "count": 1, "dtype": dtype,
                "crs": CRS, "transform": TRANSFORM, "nodata": nodata, "compress": "deflate"}
@@ -106,6 +117,7 @@ def main():
     write("pond_population.tif", population, "float32", -9999.0)
     write("resistance_with_underpass.tif", with_underpass(*landscape()), "float32", -9999.0)
     write("road_mortality.tif", road_mortality(resistance, road), "float32", -9999.0)
+    write("suitability.tif", suitability(resistance), "float32", -9999.0)
     print(f"wrote demo rasters to {HERE}")
 
 

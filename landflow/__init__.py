@@ -23,6 +23,7 @@ from .analyses.priority import (connectivity, corridor, corridor_ranking, link_c
                                 restoration_gain, scenario_change)
 from .analyses.resistance import PatchVoltages, effective_resistance, patch_voltages, resistance_table
 from .analyses.simulate import WalkSample, simulate_walks
+from .analyses.suitability import resistance_from_suitability
 from .errors import ConfigError, InputError, LandflowError, SolverError
 from .graph import CellGraph, build_graph, cell_edges, landscape_mask
 from .grid import Grid
@@ -43,6 +44,12 @@ def check_study(study):
     return _check(study)
 
 
+def run_batch(study_files, **kwargs):
+    """Run many studies and sweeps, locally or on a Dask cluster; see :func:`landflow.study.batch.run_batch`."""
+    from .study.batch import run_batch as _batch
+    return _batch(study_files, **kwargs)
+
+
 def read_grid(path, **kwargs):
     """Read a single-band raster into a Grid; see :func:`landflow.io.rasters.read_grid`."""
     from .io.rasters import read_grid as _read
@@ -56,7 +63,8 @@ __all__ = [
     "AbsorbingWalk", "absorbing_walk", "hitting_probability", "absorption_probability", "most_likely_destination",
     "arrival_table", "expected_steps", "release_expected_steps", "expected_visits", "mortality_from_resistance",
     "simulate_walks", "WalkSample", "StrandedWalkWarning",
-    "run_study", "check_study", "read_grid",
+    "resistance_from_suitability",
+    "run_study", "check_study", "run_batch", "read_grid",
     "cell_edges", "connectivity", "link_conductance", "corridor_ranking", "corridor", "objective_weights",
     "restoration_gain", "scenario_change", "LeastCost", "least_cost", "least_cost_table",
     "LandflowError", "InputError", "ConfigError", "SolverError",

@@ -22,7 +22,41 @@ def _parser():
     run.add_argument("study", help="study file (TOML)")
     check = commands.add_parser("check", parents=[common], help="validate a study and its inputs without solving")
     check.add_argument("study", help="study file (TOML)")
+    batch = commands.add_parser(
+        "batch", parents=[common], help="run many studies and sweeps on local processes or a Dask cluster",
+        description="Run every study file and every run of its [sweep]. Runs whose outputs are up to date "
+                    "(same settings, inputs and landflow version in their manifest.json) are skipped.")
+    batch.add_argument("studies", nargs="+", metavar="STUDY", help="study files (TOML)")
+    batch.add_argument("--workers", type=int, default=None, metavar="N",
+                       help="local worker processes (default: the number of CPU cores)")
+    batch.add_argument("--scheduler", metavar="ADDRESS",
+                       help="submit the runs to the dask.distributed scheduler at ADDRESS (e.g. tcp://host:8786) "
+                            "instead of local processes")
+    batch.add_argument("--summary", metavar="PATH", default="batch_summary.csv",
+                       help="where to write the summary table (default: batch_summary.csv in the current folder)")
+    batch.add_argument("--force", action="store_true", help="rerun runs whose outputs are up to date")
     return parser
+
+
+def _has_sweep(path):
+    from .study.config import read_study_file
+    return "sweep" in read_study_file(path)
+
+
+def _batch(args, studies, workers):
+    from .study.batch import run_batch
+    if workers is not None and workers < 0:
+        print(f"landflow: error: --workers must be 0 or more; got {workers}.", file=sys.stderr)
+        return 2
+    outcomes = run_batch(studies, workers=workers, scheduler=getattr(args, "scheduler", None),
+                         summary=getattr(args, "summary", "batch_summary.csv"), force=getattr(args, "force", False))
+    failed = [o for o in outcomes if o.status == "failed"]
+    counts = {s: sum(o.status == s for o in outcomes) for s in ("done", "skipped", "failed")}
+    print(f"landflow: {len(outcomes)} runs: {counts['done']} done, {counts['skipped']} up to date, "
+          f"{counts['failed']} failed; summary in {getattr(args, 'summary', 'batch_summary.csv')}")
+    for o in failed:
+        print(f"landflow: run {o.run} failed: {o.error}", file=sys.stderr)
+    return 1 if failed else 0
 
 
 def main(argv=None):
@@ -35,6 +69,22 @@ def main(argv=None):
                         format="%(asctime)s %(levelname)s %(message)s", datefmt="%H:%M:%S", stream=sys.stderr)
     from .study.run import check_study, run_study
     try:
+        if args.command == "batch":
+            # the progress display owns the terminal; each run's details are in its report.md
+            logging.getLogger("landflow").setLevel(logging.WARNING)
+            return _batch(args, args.studies, args.workers)
+        if args.command in ("run", "check") and _has_sweep(args.study):
+            from .study.sweep import expand_study
+            runs = expand_study(args.study)
+            if args.command == "check":
+                for run in runs:
+                    check_study(run.study)
+                print(f"landflow: {args.study} is valid: a sweep of {len(runs)} runs: "
+                      f"{', '.join(r.run_name for r in runs)}")
+                return 0
+            logging.getLogger("landflow").setLevel(logging.WARNING)
+            args.summary = str(runs[0].sweep_folder / "batch_summary.csv")
+            return _batch(args, [args.study], 0)
         if args.command == "run":
             manifest = run_study(args.study)
             print(f"landflow: wrote {len(manifest['outputs'])} outputs to {manifest['folder']} "

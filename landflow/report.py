@@ -15,10 +15,9 @@ def quicklook(path, array, *, patches=None, title="", units="", log_scale=True):
     NaN cells are left blank. With ``log_scale`` the colours span the 1st to
     the 99.9th percentile of the positive values on a log scale.
     """
-    import matplotlib
-    matplotlib.use("Agg", force=False)
-    import matplotlib.pyplot as plt
+    # A Figure of its own, not pyplot's global state: safe when runs share a process (threaded workers).
     from matplotlib.colors import LogNorm, Normalize
+    from matplotlib.figure import Figure
 
     data = np.ma.masked_invalid(np.asarray(array, dtype=float))
     positive = data.compressed()
@@ -34,7 +33,8 @@ def quicklook(path, array, *, patches=None, title="", units="", log_scale=True):
             norm = Normalize(vmin=lo, vmax=hi, clip=True)
     rows, cols = data.shape
     width = 8.0
-    fig, ax = plt.subplots(figsize=(width, max(3.0, width * rows / cols * 0.9)), dpi=120)
+    fig = Figure(figsize=(width, max(3.0, width * rows / cols * 0.9)), dpi=120)
+    ax = fig.subplots()
     image = ax.imshow(data, cmap="viridis", norm=norm, interpolation="nearest")
     if patches is not None and (np.asarray(patches) > 0).any():
         ax.contour(np.asarray(patches) > 0, levels=[0.5], colors="white", linewidths=0.8)
@@ -46,7 +46,6 @@ def quicklook(path, array, *, patches=None, title="", units="", log_scale=True):
     fig.tight_layout()
     with atomic_path(path) as tmp:
         fig.savefig(tmp, format="png")
-    plt.close(fig)
 
 
 def write_report(path, manifest, caution):

@@ -7,15 +7,32 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from ..errors import ConfigError
+from ..analyses.suitability import TRANSFORMS
 from ..graph import EDGE_RULES, NEIGHBOURS
 from ..solve import METHODS
 from .schema import REQUIRED, Key, Section, close_match, validate_section
 
-__all__ = ["Study", "load_study", "SECTIONS"]
+__all__ = ["Study", "load_study", "read_study_file", "study_from_dict", "SECTIONS"]
 
 
 def _positive(value):
     return None if value > 0 else "must be greater than 0"
+
+
+def _above_one(value):
+    return None if value > 1 else "must be greater than 1"
+
+
+def _suitability_rules(land):
+    if land["suitability"] is None:
+        return None
+    if land["suitability_transform"] == "negative_exponential" and land["suitability_shape"] is None:
+        return ("suitability_transform = 'negative_exponential' needs 'suitability_shape' (the shape c > 0, "
+                "for example 8)")
+    if land["suitability_transform"] == "linear" and land["suitability_shape"] is not None:
+        return ("'suitability_shape' only applies to suitability_transform = 'negative_exponential'; "
+                "remove it or change the transform")
+    return None
 
 
 def _non_negative(value):
@@ -24,16 +41,39 @@ def _non_negative(value):
 
 SECTIONS = {
     "landscape": Section({
-        "resistance": Key(str, None, "raster of resistance per unit length (map units); nodata = outside", path="input"),
-        "conductance": Key(str, None, "raster of conductance per unit length; 0 = barrier, nodata = outside", path="input"),
-        "neighbours": Key(int, 8, "cells joined to each cell: 8 (with diagonals) or 4", choices=NEIGHBOURS),
-        "edge_rule": Key(str, "mean_resistance", "how two cells' values make an edge's conductance", choices=EDGE_RULES),
-    }, "The surface the walk moves over.", exactly_one=(("resistance", "conductance"),)),
+        "resistance": Key(str, None, "raster of resistance per unit length; nodata = outside", path="input",
+                          unit="resistance per map unit", example="resistance.tif"),
+        "conductance": Key(str, None, "raster of conductance per unit length; 0 = barrier, nodata = outside",
+                           path="input", unit="conductance x map unit", example="conductance.tif"),
+        "suitability": Key(str, None, "raster of habitat suitability, turned into resistance by "
+                                      "'suitability_transform'; nodata = outside", path="input",
+                           unit="0 to suitability_scale", example="suitability.tif"),
+        "suitability_scale": Key(float, 1.0, "suitability of a fully suitable cell: 1 for a 0-1 map, 100 for a "
+                                             "0-100 map", check=_positive, unit="suitability"),
+        "suitability_transform": Key(str, "linear", "linear: R = Rmax - (Rmax - 1) h; negative_exponential: "
+                                                    "R = Rmax - (Rmax - 1) (1 - exp(-c h)) / (1 - exp(-c)), "
+                                                    "h = suitability / suitability_scale (Keeley, Beier & "
+                                                    "Gagnon 2016)", choices=TRANSFORMS),
+        "suitability_shape": Key(float, None, "shape c of the negative exponential: near 0 almost linear, 8 or more "
+                                              "strongly nonlinear (resistance stays low until suitability is low)",
+                                 check=_positive, unit="none", example=8.0),
+        "suitability_max_resistance": Key(float, 100.0, "resistance of a cell of suitability 0 (a cell of "
+                                                        "suitability 1 has resistance 1)",
+                                          check=_above_one, unit="resistance per map unit"),
+        "neighbours": Key(int, 8, "cells joined to each cell: 8 (with diagonals) or 4", choices=NEIGHBOURS,
+                          unit="cells"),
+        "edge_rule": Key(str, "mean_resistance", "how two cells' values make an edge's conductance",
+                         choices=EDGE_RULES),
+    }, "The surface the walk moves over: a resistance, conductance or habitat suitability raster.",
+        exactly_one=(("resistance", "conductance", "suitability"),), check=_suitability_rules),
     "patches": Section({
-        "raster": Key(str, None, "integer raster of patch labels on the landscape's grid, 0 = no patch", path="input"),
-        "points": Key(str, None, "CSV with columns x, y, id (map coordinates in the landscape's CRS)", path="input"),
+        "raster": Key(str, None, "integer raster of patch labels on the landscape's grid, 0 = no patch", path="input",
+                      unit="label", example="patches.tif"),
+        "points": Key(str, None, "CSV with columns x, y, id (map coordinates in the landscape's CRS)", path="input",
+                      unit="map units", example="sites.csv"),
         "strength_column": Key(str, None, "column of the points CSV holding each patch's strength"),
-        "strength_raster": Key(str, None, "raster summed over each patch's cells to give its strength", path="input"),
+        "strength_raster": Key(str, None, "raster summed over each patch's cells to give its strength", path="input",
+                               unit="strength per cell", example="population.tif"),
     }, "Habitat patches or sample sites.", exactly_one=(("raster", "points"),)),
     "mortality": Section({
         "raster": Key(str, None, "raster of per-step death probability in [0, 1) on the landscape's grid; "
@@ -45,7 +85,8 @@ SECTIONS = {
        "mortality on patch cells is ignored."),
     "solver": Section({
         "method": Key(str, "auto", "linear solver: auto, direct (sparse LU) or multigrid (AMG + CG)", choices=METHODS),
-        "tolerance": Key(float, 1e-8, "relative residual target of iterative solves", check=_positive),
+        "tolerance": Key(float, 1e-8, "relative residual target of iterative solves", check=_positive,
+                         unit="relative residual"),
     }, "How the linear systems are solved."),
     "output": Section({
         "folder": Key(str, "results", "folder for the outputs, relative to the study file", path="output"),
@@ -66,11 +107,15 @@ class Study:
         ``{section: {key: value}}`` for the fixed sections.
     analyses : dict
         ``{analysis name: {key: value}}`` in the order landflow runs them.
+    variation : dict
+        For one run of a sweep, ``{dotted key: value}`` of the swept settings;
+        empty otherwise.
     """
 
     path: Path | None
     settings: dict
     analyses: dict = field(default_factory=dict)
+    variation: dict = field(default_factory=dict)
 
     @property
     def output_folder(self):
@@ -95,13 +140,24 @@ def load_study(path):
         range or names a missing file. The message names the file and the key.
     """
     path = Path(path)
+    raw = read_study_file(path)
+    if "sweep" in raw:
+        raise ConfigError(f"{path}: the study declares a [sweep], which expands into several runs; run it with "
+                          f"'landflow run' or 'landflow batch', or from Python with landflow.study.sweep.expand_study.")
+    return study_from_dict(raw, base_dir=path.resolve().parent, source=str(path), path=path)
+
+
+def read_study_file(path):
+    """Parse a study file's TOML into a dict (no validation)."""
+    path = Path(path)
     try:
-        raw = tomllib.loads(path.read_text(encoding="utf-8"))
+        return tomllib.loads(path.read_text(encoding="utf-8"))
     except FileNotFoundError:
         raise ConfigError(f"study file '{path}' does not exist.") from None
+    except IsADirectoryError:
+        raise ConfigError(f"'{path}' is a folder; give the path of a study file (TOML).") from None
     except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
         raise ConfigError(f"{path}: not valid TOML: {exc}.") from None
-    return study_from_dict(raw, base_dir=path.resolve().parent, source=str(path), path=path)
 
 
 def study_from_dict(raw, *, base_dir=".", source="study", path=None):
@@ -109,11 +165,14 @@ def study_from_dict(raw, *, base_dir=".", source="study", path=None):
     from .steps import ANALYSES
 
     base_dir = Path(base_dir)
-    known = list(SECTIONS) + ["analyses"]
+    known = list(SECTIONS) + ["analyses", "sweep"]
     for name in raw:
         if name not in known:
             raise ConfigError(f"{source}: unknown table [{name}].{close_match(name, known)} "
                               f"Known tables: {', '.join(known)}.")
+    if "sweep" in raw:
+        raise ConfigError(f"{source}: a [sweep] table cannot be validated as one study; expand it first "
+                          "(landflow.study.sweep.expand_study).")
     settings = {}
     for name, section in SECTIONS.items():
         table = raw.get(name, {})

@@ -21,6 +21,7 @@ import numpy as np
 from .. import __version__
 from ..errors import ConfigError, InputError
 from ..graph import build_graph
+from ..grid import Grid
 from ..io.rasters import read_aligned, read_grid, write_geotiff
 from ..io.sites import patch_strength_from_raster, read_patch_points, read_patch_raster
 from ..io.tables import write_csv
@@ -59,9 +60,14 @@ class RunContext:
     def _load(self):
         land = self.study.settings["landscape"]
         kind = "resistance" if land["resistance"] is not None else "conductance"
-        self.kind = kind
         with self.timed("read inputs"):
-            self.grid = read_grid(self._input(land[kind]), what=f"{kind} raster")
+            if land.get("suitability") is not None:
+                kind = "resistance"
+                self.grid = _grid_from_suitability(read_grid(self._input(land["suitability"]),
+                                                             what="suitability raster"), land)
+            else:
+                self.grid = read_grid(self._input(land[kind]), what=f"{kind} raster")
+            self.kind = kind
             spec = self.study.settings["patches"]
             if spec["raster"] is not None:
                 if spec["strength_column"] is not None:
@@ -207,6 +213,18 @@ class RunContext:
         quicklook(path, array, patches=self.patches.labels, title=title, units=units, log_scale=log_scale)
 
 
+def _grid_from_suitability(grid, land):
+    """The resistance grid made from a suitability grid by the study's transform."""
+    from ..analyses.suitability import resistance_from_suitability
+    transform = land["suitability_transform"]
+    resistance = resistance_from_suitability(
+        grid.values, scale=land["suitability_scale"], transform=transform,
+        shape=land["suitability_shape"] if transform != "linear" else None,
+        max_resistance=land["suitability_max_resistance"], mask=grid.mask, where=grid.where,
+        source=grid.source)
+    return Grid(resistance, grid.mask, grid.transform, grid.crs, source=grid.source, nodata=grid.nodata)
+
+
 class _Timer:
     def __init__(self, timings, name):
         self.timings, self.name = timings, name
@@ -294,6 +312,10 @@ def run_study(study):
     try:
         ctx = RunContext(study, tmp)
         _check_steps(ctx)
+        if study.settings["landscape"].get("suitability") is not None:
+            ctx.write_raster("resistance_from_suitability.tif", np.where(ctx.grid.mask, ctx.grid.values, np.nan),
+                             per_node=False, units="resistance per map unit",
+                             description="resistance made from the suitability raster by the study's transform")
         for name, settings in study.analyses.items():
             with ctx.timed(name):
                 ANALYSES[name].run(ctx, settings)
@@ -340,6 +362,7 @@ def _manifest(ctx, seconds):
         "platform": platform.platform(),
         "inputs": [{"path": p, "sha256": h} for p, h in ctx.inputs.items()],
         "settings": ctx.study.resolved(),
+        "sweep": dict(ctx.study.variation) or None,
         "landscape": {"rows": graph.shape[0], "cols": graph.shape[1],
                       "cell_size": list(ctx.grid.cell_size),
                       "crs": ctx.grid.crs.to_string() if ctx.grid.crs else None,

@@ -27,6 +27,7 @@ class Key:
     path : "input" (a file that must exist), "output" (a folder), or None;
         paths are relative to the study file.
     unit : the unit of a number, for the reference
+    example : a value to show in the reference's examples (default: the default)
     """
 
     type: type
@@ -36,15 +37,21 @@ class Key:
     check: Callable | None = None
     path: str | None = None
     unit: str = ""
+    example: Any = None
 
 
 @dataclass(frozen=True)
 class Section:
-    """A table of keys; ``exactly_one`` lists groups of keys of which exactly one must be set."""
+    """A table of keys; ``exactly_one`` lists groups of keys of which exactly one must be set.
+
+    ``check`` is an optional callable(resolved dict) -> error text or None for
+    rules that involve several keys.
+    """
 
     keys: dict
     doc: str = ""
     exactly_one: tuple = ()
+    check: Callable | None = None
 
 
 def close_match(name, options):
@@ -78,6 +85,10 @@ def validate_section(raw, section, where, base_dir, source):
         if len(given) != 1:
             got = "none of them" if not given else "both " + " and ".join(given)
             raise ConfigError(f"{source}: [{where}] needs exactly one of {' or '.join(group)}; got {got}.")
+    if section.check is not None:
+        problem = section.check(out)
+        if problem:
+            raise ConfigError(f"{source}: [{where}] {problem}.")
     return out
 
 

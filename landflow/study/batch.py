@@ -1,0 +1,334 @@
+"""Batches: many studies and sweep runs, on local worker processes or a dask.distributed cluster.
+
+Every study file is expanded and validated first; a file that does not
+validate is reported as failed and the rest still run. A run whose output
+folder holds a manifest matching its current settings, input hashes and
+landflow version is skipped. Each run writes into a temporary folder renamed
+into place at the end (see :func:`landflow.study.run.run_study`), so a run
+that fails or is killed leaves no folder that looks finished.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import os
+import sys
+import time
+from dataclasses import dataclass
+from pathlib import Path
+
+import pandas as pd
+
+from .. import __version__
+from ..errors import ConfigError, LandflowError
+from ..io.tables import write_csv
+from .sweep import expand_study, write_sweep_tables
+
+__all__ = ["RunOutcome", "plan_batch", "run_batch", "is_up_to_date", "Progress", "SUMMARY_COLUMNS"]
+
+SUMMARY_COLUMNS = ["run", "status", "seconds", "folder", "error"]
+
+#: How long to wait for a Dask scheduler to answer.
+CONNECT_TIMEOUT = "20s"
+
+
+@dataclass
+class RunOutcome:
+    """One row of the batch summary.
+
+    status is "done" (ran and wrote its outputs), "skipped" (its outputs were
+    already up to date) or "failed" (``error`` says why).
+    """
+
+    run: str
+    status: str
+    seconds: float
+    folder: str
+    error: str = ""
+
+
+def plan_batch(study_files):
+    """Expand and validate study files.
+
+    Returns
+    -------
+    runs : list of StudyRun
+        Every valid run, in the order given.
+    invalid : list of RunOutcome
+        One failed outcome per study file that did not validate.
+
+    Raises
+    ------
+    ConfigError
+        Two runs would write to the same output folder, or no study file was given.
+    """
+    paths = [Path(p) for p in study_files]
+    if not paths:
+        raise ConfigError("no study files given; name one or more study files (TOML).")
+    stems = [p.stem for p in paths]
+    runs, invalid = [], []
+    for path, stem in zip(paths, stems):
+        name = stem if stems.count(stem) == 1 else str(path.with_suffix("")).replace(os.sep, "/")
+        try:
+            runs.extend(expand_study(path, name=name))
+        except LandflowError as exc:
+            invalid.append(RunOutcome(name, "failed", 0.0, "", f"{type(exc).__name__}: {exc}"))
+    folders = {}
+    for run in runs:
+        if run.folder in folders:
+            raise ConfigError(f"runs '{folders[run.folder]}' and '{run.name}' would both write to {run.folder}; "
+                              "give each study its own 'output.folder'.")
+        folders[run.folder] = run.name
+    return runs, invalid
+
+
+def _sha256(path):
+    digest = hashlib.sha256()
+    with open(path, "rb") as fh:
+        for chunk in iter(lambda: fh.read(1 << 20), b""):
+            digest.update(chunk)
+    return digest.hexdigest()
+
+
+def is_up_to_date(study):
+    """True when ``study``'s output folder holds a manifest of exactly this study.
+
+    The manifest must record the same landflow version, the same resolved
+    settings, and input files whose SHA-256 still match the files on disk.
+    """
+    try:
+        manifest = json.loads((study.output_folder / "manifest.json").read_text(encoding="utf-8"))
+    except (OSError, ValueError):
+        return False
+    if manifest.get("landflow_version") != __version__:
+        return False
+    if manifest.get("settings") != json.loads(json.dumps(study.resolved())):
+        return False
+    try:
+        return all(_sha256(item["path"]) == item["sha256"] for item in manifest.get("inputs", []))
+    except (OSError, KeyError, TypeError):
+        return False
+
+
+def execute_run(study):
+    """Run one study and report, never raise: the function a worker executes.
+
+    Returns
+    -------
+    dict
+        status ("done" or "failed"), seconds, folder, error.
+    """
+    from .run import run_study
+
+    started = time.perf_counter()
+    try:
+        manifest = run_study(study)
+        return {"status": "done", "seconds": time.perf_counter() - started, "folder": manifest["folder"],
+                "error": ""}
+    except Exception as exc:  # a batch reports every failure and carries on
+        return {"status": "failed", "seconds": time.perf_counter() - started, "folder": "",
+                "error": f"{type(exc).__name__}: {exc}"}
+
+
+class Progress:
+    """One progress display for a batch: runs done, running, failed, elapsed.
+
+    On a terminal a single status line is redrawn in place (finished runs
+    are printed above it); elsewhere (a log file, a pipe) each event is one
+    plain line.
+    """
+
+    def __init__(self, total, stream=None, *, live=None):
+        self.stream = stream if stream is not None else sys.stderr
+        self.live = self.stream.isatty() if live is None else live
+        self.total = total
+        self.done = self.failed = self.skipped = self.running = 0
+        self.started = time.perf_counter()
+        self._last_draw = 0.0
+
+    def _status(self):
+        return (f"landflow batch: {self.done + self.skipped}/{self.total} done ({self.skipped} up to date), "
+                f"{self.running} running, {self.failed} failed, {self._elapsed()} elapsed")
+
+    def _elapsed(self):
+        seconds = int(time.perf_counter() - self.started)
+        return f"{seconds // 60:d}:{seconds % 60:02d}"
+
+    def _write(self, text):
+        self.stream.write(text)
+        self.stream.flush()
+
+    def event(self, outcome):
+        """Record a finished run (done, skipped or failed) and show it."""
+        if outcome.status != "skipped":
+            self.running = max(0, self.running - 1)
+        if outcome.status == "done":
+            self.done += 1
+        elif outcome.status == "skipped":
+            self.skipped += 1
+        else:
+            self.failed += 1
+        what = {"done": f"done in {outcome.seconds:.1f} s", "skipped": "up to date, skipped",
+                "failed": f"FAILED: {outcome.error}"}[outcome.status]
+        line = f"[{self._elapsed()}] {outcome.run}: {what}"
+        if self.live:
+            self._write("\r\x1b[K" + line + "\n" + self._status())
+        else:
+            self._write(line + "\n")
+
+    def tick(self, running):
+        """Update the number of runs in progress; redraws the live line at most 4 times a second."""
+        changed = running != self.running
+        self.running = running
+        now = time.perf_counter()
+        if self.live and (changed or now - self._last_draw > 0.25):
+            self._last_draw = now
+            self._write("\r\x1b[K" + self._status())
+        elif not self.live and changed and running:
+            self._write(f"[{self._elapsed()}] {running} running, {self.done + self.skipped} of {self.total} done, "
+                        f"{self.failed} failed\n")
+
+    def close(self):
+        self.running = 0
+        self._write(("\r\x1b[K" if self.live else "") + self._status() + "\n")
+
+
+def run_batch(study_files, *, workers=None, scheduler=None, client=None, summary=None, force=False,
+              stream=None, live=None):
+    """Run many studies (and every run of their sweeps), locally or on a Dask cluster.
+
+    Parameters
+    ----------
+    study_files : list of str or Path
+    workers : int, optional
+        Local worker processes (default: the number of CPU cores, at most the
+        number of runs). 0 runs everything in this process, one after another.
+    scheduler : str, optional
+        Address of a dask.distributed scheduler (``tcp://host:8786``); runs
+        are submitted to that cluster instead of local processes. Its workers
+        must be able to import landflow and read the inputs and output
+        folders under the same paths.
+    client : distributed.Client, optional
+        An already connected client (instead of ``scheduler``).
+    summary : str or Path, optional
+        Where to write the summary table (default ``batch_summary.csv`` in
+        the current folder); columns run, status, seconds, folder, error.
+    force : bool
+        Rerun runs whose outputs are up to date.
+    stream : file, optional
+        Where progress goes (default standard error).
+    live : bool, optional
+        Redraw one status line (default: when ``stream`` is a terminal).
+
+    Returns
+    -------
+    list of RunOutcome
+        In the order of the study files and their sweep runs.
+    """
+    runs, invalid = plan_batch(study_files)
+    progress = Progress(len(runs) + len(invalid), stream, live=live)
+    outcomes = {}
+    for bad in invalid:
+        outcomes[bad.run] = bad
+        progress.event(bad)
+    todo = []
+    for run in runs:
+        if not force and is_up_to_date(run.study):
+            outcomes[run.name] = RunOutcome(run.name, "skipped", 0.0, str(run.folder))
+            progress.event(outcomes[run.name])
+        else:
+            todo.append(run)
+    if todo:
+        if client is not None or scheduler is not None:
+            _run_on_dask(todo, client, scheduler, outcomes, progress)
+        elif workers == 0:
+            for run in todo:
+                progress.tick(1)
+                outcomes[run.name] = RunOutcome(run.name, **execute_run(run.study))
+                progress.event(outcomes[run.name])
+        else:
+            n = workers or min(os.cpu_count() or 1, len(todo))
+            _run_on_processes(todo, n, outcomes, progress)
+    progress.close()
+    order = [bad.run for bad in invalid] + [run.name for run in runs]
+    ordered = [outcomes[name] for name in order]
+    write_sweep_tables(runs, {o.run: o.status for o in ordered})
+    table = pd.DataFrame([{"run": o.run, "status": o.status, "seconds": f"{o.seconds:.3f}", "folder": o.folder,
+                           "error": o.error} for o in ordered], columns=SUMMARY_COLUMNS)
+    summary = Path(summary) if summary is not None else Path("batch_summary.csv")
+    summary.parent.mkdir(parents=True, exist_ok=True)
+    write_csv(summary, table)
+    return ordered
+
+
+def _collect(pending, slots, outcomes, progress, result_of):
+    """Poll futures until all are finished, reporting each as it ends."""
+    while pending:
+        finished = [f for f in pending if f.done()]
+        for future in finished:
+            run = pending.pop(future)
+            outcomes[run.name] = RunOutcome(run.name, **result_of(future, run))
+            progress.event(outcomes[run.name])
+        progress.tick(min(len(pending), slots))
+        if pending and not finished:
+            time.sleep(0.1)
+
+
+def _lost(exc):
+    return {"status": "failed", "seconds": 0.0, "folder": "",
+            "error": f"the worker running it was lost: {type(exc).__name__}: {exc}"}
+
+
+def _run_on_processes(todo, workers, outcomes, progress):
+    import multiprocessing
+    from concurrent.futures import ProcessPoolExecutor
+
+    def result_of(future, run):
+        try:
+            return future.result()
+        except Exception as exc:  # a worker process died (killed, out of memory)
+            return _lost(exc)
+
+    # spawn: a clean interpreter per worker, safe whatever threads this process holds
+    with ProcessPoolExecutor(max_workers=workers, mp_context=multiprocessing.get_context("spawn")) as pool:
+        pending = {pool.submit(execute_run, run.study): run for run in todo}
+        try:
+            _collect(pending, workers, outcomes, progress, result_of)
+        except BaseException:   # interrupted: drop the queued runs; running ones clean up after themselves
+            pool.shutdown(wait=False, cancel_futures=True)
+            raise
+
+
+def _run_on_dask(todo, client, scheduler, outcomes, progress):
+    try:
+        from distributed import Client
+    except ImportError:
+        raise ConfigError("running on a Dask cluster needs dask.distributed; install it with "
+                          "pip install 'landflow[dask]' (or pip install 'dask[distributed]').") from None
+    own = client is None
+    if own:
+        try:
+            client = Client(scheduler, timeout=CONNECT_TIMEOUT)
+        except (OSError, ValueError) as exc:
+            raise ConfigError(f"cannot reach the Dask scheduler at '{scheduler}': {exc}. Check the address "
+                              "(for example tcp://host:8786) and that the scheduler is running.") from None
+    try:
+        slots = max(1, sum(client.nthreads().values()))
+
+        def result_of(future, run):
+            try:
+                return future.result()
+            except Exception as exc:  # the task itself never raises; this is a lost worker
+                return _lost(exc)
+
+        pending = {client.submit(execute_run, run.study, key=f"landflow-{run.name}-{time.time_ns()}",
+                                 pure=False): run for run in todo}
+        try:
+            _collect(pending, slots, outcomes, progress, result_of)
+        except BaseException:
+            client.cancel(list(pending))
+            raise
+    finally:
+        if own:
+            client.close()

@@ -1,0 +1,31 @@
+"""docs/study-files.md is generated from the schema and must match it."""
+
+from pathlib import Path
+
+from landflow.study.config import SECTIONS
+from landflow.study.reference import COMMAND, render, toml_value
+from landflow.study.schema import REQUIRED
+from landflow.study.steps import ANALYSES
+
+DOC = Path(__file__).resolve().parents[2] / "docs" / "study-files.md"
+
+
+def test_committed_reference_is_up_to_date():
+    assert DOC.read_text(encoding="utf-8") == render(), (
+        f"docs/study-files.md is out of date with the schema; regenerate it with: {COMMAND}")
+
+
+def test_every_key_with_its_default_and_unit_is_documented():
+    text = render()
+    tables = [(name, s) for name, s in SECTIONS.items()] + [(f"analyses.{a}", st.SETTINGS) for a, st in ANALYSES.items()]
+    for table, section in tables:
+        assert f"[{table}]" in text
+        for name, key in section.keys.items():
+            row = next((line for line in text.splitlines() if line.startswith(f"| `{name}` |")), None)
+            assert row is not None, f"{table}.{name} missing"
+            if key.default not in (None, REQUIRED):
+                assert f"`{toml_value(key.default)}`" in text
+            if key.unit:
+                assert key.unit in text
+    for name in ANALYSES:
+        assert f"```toml\n[landscape]" in text and f"\n[analyses.{name}]\n" in text
