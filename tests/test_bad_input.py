@@ -233,7 +233,7 @@ def test_unknown_key_suggests_the_close_match(study, landscape, extra, message):
     ('resistance = "resistance.tif"', '[analyses.current_density.x]\n',
      r"'analyses\.current_density\.x'|unknown key 'x' in \[analyses\.current_density\]"),
     ('resistance = "resistance.tif"\nconductance = "resistance.tif"', "",
-     r"\[landscape\] needs exactly one of resistance or conductance; got both resistance and conductance"),
+     r"\[landscape\] needs exactly one of resistance, conductance or suitability; got resistance and conductance"),
 ])
 def test_wrong_value_types_and_values(study, landscape, extra, message):
     with pytest.raises(lf.ConfigError, match=r"study\.toml: " + message):

@@ -83,8 +83,9 @@ def validate_section(raw, section, where, base_dir, source):
     for group in section.exactly_one:
         given = [k for k in group if out.get(k) is not None]
         if len(given) != 1:
-            got = "none of them" if not given else "both " + " and ".join(given)
-            raise ConfigError(f"{source}: [{where}] needs exactly one of {' or '.join(group)}; got {got}.")
+            got = "none of them" if not given else " and ".join(given)
+            options = ", ".join(group[:-1]) + " or " + group[-1]
+            raise ConfigError(f"{source}: [{where}] needs exactly one of {options}; got {got}.")
     if section.check is not None:
         problem = section.check(out)
         if problem:

@@ -35,7 +35,7 @@ def test_suitability_study_equals_resistance_study(landscape):
     ('suitability = "suitability.tif"\nsuitability_shape = 2',
      r"'suitability_shape' only applies to suitability_transform = 'negative_exponential'"),
     ('suitability = "suitability.tif"\nresistance = "resistance.tif"',
-     r"needs exactly one of resistance or conductance or suitability; got both resistance and suitability"),
+     r"needs exactly one of resistance, conductance or suitability; got resistance and suitability"),
     ('suitability = "suitability.tif"\nsuitability_transform = "exponential"',
      r"must be one of 'linear', 'negative_exponential'; got 'exponential'. Did you mean 'negative_exponential'\?"),
     ('suitability = "suitability.tif"\nsuitability_shap = 2',
