@@ -24,7 +24,7 @@ class Grid:
         True where a cell is inside the landscape (not nodata, finite).
     transform : affine.Affine
         Map coordinates of the upper-left corner of cell (row, col) are
-        ``transform * (col, row)``. Rotated grids are not supported.
+        ``(c + a * col, f + e * row)``. Rotated grids are not supported.
     crs : object or None
         The coordinate reference system as given by the reader (a
         ``rasterio.crs.CRS`` when read from a file), or None.
@@ -98,12 +98,16 @@ class Grid:
 
     def xy(self, row, col):
         """Map coordinates of the centre of cell(s) (row, col)."""
-        x, y = self.transform * (np.asarray(col) + 0.5, np.asarray(row) + 0.5)
+        t = self.transform
+        x = t.c + t.a * (np.asarray(col) + 0.5)
+        y = t.f + t.e * (np.asarray(row) + 0.5)
         return x, y
 
     def rowcol(self, x, y):
         """Row and column of the cell(s) holding map point(s) (x, y); may be out of range."""
-        col, row = ~self.transform * (np.asarray(x, dtype=float), np.asarray(y, dtype=float))
+        t = self.transform
+        col = (np.asarray(x, dtype=float) - t.c) / t.a
+        row = (np.asarray(y, dtype=float) - t.f) / t.e
         return np.floor(row).astype(np.int64), np.floor(col).astype(np.int64)
 
     def where(self, row, col):
