@@ -33,9 +33,8 @@ resistance per unit length with R_max = `suitability_max_resistance` (100 in the
 Both give R = R_max where h = 0 and R = 1 where h = 1; the negative exponential tends to the
 linear transform as c -> 0. The larger c, the longer resistance stays near 1 as suitability
 falls: the animal crosses moderately suitable land freely and avoids only the least suitable.
-In the source a negative exponential best described resistance to long-distance movement of
-desert bighorn sheep; the range of c it compared, about 0.25 (nearly linear) to 16, is quoted
-here from memory. Cells with a suitability outside 0 to `suitability_scale` are an
+The range of c compared in the source, about 0.25 (nearly linear) to 16, is quoted here from
+memory. Cells with a suitability outside 0 to `suitability_scale` are an
 error (mark them nodata instead). The resistance used is written as
 `resistance_from_suitability.tif`.
 
