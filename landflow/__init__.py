@@ -56,6 +56,24 @@ def read_grid(path, **kwargs):
     return _read(path, **kwargs)
 
 
+def read_patch_raster(path, grid):
+    """Patch labels from an integer raster on ``grid``; see :func:`landflow.io.sites.read_patch_raster`."""
+    from .io.sites import read_patch_raster as _read
+    return _read(path, grid)
+
+
+def read_patch_points(path, grid, **kwargs):
+    """Patches from a CSV of points (x, y, id); see :func:`landflow.io.sites.read_patch_points`."""
+    from .io.sites import read_patch_points as _read
+    return _read(path, grid, **kwargs)
+
+
+def write_geotiff(path, array, grid, **profile):
+    """Write an array on ``grid`` as a GeoTIFF; see :func:`landflow.io.rasters.write_geotiff`."""
+    from .io.rasters import write_geotiff as _write
+    return _write(path, array, grid, **profile)
+
+
 __all__ = [
     "__version__", "Grid", "CellGraph", "build_graph", "landscape_mask", "Solver", "factorize",
     "PatchVoltages", "patch_voltages", "effective_resistance", "resistance_table",
@@ -64,7 +82,7 @@ __all__ = [
     "arrival_table", "expected_steps", "release_expected_steps", "expected_visits", "mortality_from_resistance",
     "simulate_walks", "WalkSample", "StrandedWalkWarning",
     "resistance_from_suitability",
-    "run_study", "check_study", "run_batch", "read_grid",
+    "run_study", "check_study", "run_batch", "read_grid", "read_patch_raster", "read_patch_points", "write_geotiff",
     "cell_edges", "connectivity", "link_conductance", "corridor_ranking", "corridor", "objective_weights",
     "restoration_gain", "scenario_change", "LeastCost", "least_cost", "least_cost_table",
     "LandflowError", "InputError", "ConfigError", "SolverError",
