@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import textwrap
+
 import numpy as np
 
 from .io._atomic import atomic_path
@@ -9,11 +11,13 @@ from .io._atomic import atomic_path
 __all__ = ["quicklook", "write_report"]
 
 
-def quicklook(path, array, *, patches=None, title="", units="", log_scale=True):
+def quicklook(path, array, *, patches=None, title="", units="", log_scale=True, categorical=False):
     """Save a PNG map of ``array``: perceptually uniform colours, optional log stretch, patch outlines.
 
     NaN cells are left blank. With ``log_scale`` the colours span the 1st to
-    the 99.9th percentile of the positive values on a log scale.
+    the 99.9th percentile of the positive values on a log scale. With
+    ``categorical`` (whole-number classes such as patch ids) every class gets
+    its own colour from a qualitative map and its own tick.
     """
     # A Figure of its own, not pyplot's global state: safe when runs share a process (threaded workers).
     from matplotlib.colors import LogNorm, Normalize
@@ -24,7 +28,15 @@ def quicklook(path, array, *, patches=None, title="", units="", log_scale=True):
     if log_scale:
         positive = positive[positive > 0]
     norm = None
-    if positive.size:
+    classes = np.unique(data.compressed()) if categorical else None
+    if categorical:
+        import matplotlib
+        from matplotlib.colors import BoundaryNorm, ListedColormap
+        palette = matplotlib.colormaps["tab20" if classes.size > 10 else "tab10"]
+        cmap = ListedColormap([palette(i % palette.N) for i in range(max(classes.size, 1))])
+        edges = np.concatenate([classes - 0.5, [classes[-1] + 0.5]]) if classes.size else np.array([0.0, 1.0])
+        norm = BoundaryNorm(edges, cmap.N) if classes.size else None
+    elif positive.size:
         lo, hi = np.percentile(positive, [1, 99.9])
         if log_scale and hi > lo > 0:
             norm = LogNorm(vmin=lo, vmax=hi, clip=True)
@@ -35,11 +47,12 @@ def quicklook(path, array, *, patches=None, title="", units="", log_scale=True):
     width = 8.0
     fig = Figure(figsize=(width, max(3.0, width * rows / cols * 0.9)), dpi=120)
     ax = fig.subplots()
-    image = ax.imshow(data, cmap="viridis", norm=norm, interpolation="nearest")
+    image = ax.imshow(data, cmap=cmap if categorical else "viridis", norm=norm, interpolation="nearest")
     if patches is not None and (np.asarray(patches) > 0).any():
         ax.contour(np.asarray(patches) > 0, levels=[0.5], colors="white", linewidths=0.8)
-    bar = fig.colorbar(image, ax=ax, shrink=0.85)
-    bar.set_label(units + (" (log scale)" if isinstance(norm, LogNorm) else ""))
+    bar = fig.colorbar(image, ax=ax, shrink=0.85, ticks=classes if categorical and classes.size <= 30 else None)
+    label = units + (" (log scale)" if isinstance(norm, LogNorm) else "")
+    bar.set_label(textwrap.fill(label, 48))
     ax.set_title(title)
     ax.set_xlabel("column")
     ax.set_ylabel("row")

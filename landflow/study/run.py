@@ -205,12 +205,13 @@ class RunContext:
         path = self._record(name, description, units)
         write_csv(path, table, **kwargs)
 
-    def quicklook(self, name, array, *, title, units, log_scale=True):
+    def quicklook(self, name, array, *, title, units, log_scale=True, categorical=False):
         if not self.study.settings["output"]["quicklooks"]:
             return
         from ..report import quicklook
         path = self._record(name, f"quick-look picture: {title}", units)
-        quicklook(path, array, patches=self.patches.labels, title=title, units=units, log_scale=log_scale)
+        quicklook(path, array, patches=self.patches.labels, title=title, units=units, log_scale=log_scale,
+                  categorical=categorical)
 
 
 def _grid_from_suitability(grid, land):

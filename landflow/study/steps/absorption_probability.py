@@ -32,7 +32,7 @@ def run(ctx, settings):
                              description="the patch a walker from each cell most likely enters first "
                                          "(nodata where no patch can be reached)")
     ctx.quicklook("most_likely_destination.png", cells, title="Most likely first patch", units="patch id",
-                  log_scale=False)
+                  log_scale=False, categorical=True)
     if ctx.mortality is not None:
         cells = ctx.write_raster("death_probability.tif", death, units=units,
                                  description="probability that a walker from each cell dies before entering "
