@@ -78,6 +78,16 @@ def _on_grid(values, graph, what, source):
     return values
 
 
+def _require_nonnegative(values, cells, what, source, where, fix):
+    """Raise InputError naming the first of ``cells`` whose value is negative or not finite."""
+    bad = cells & ~(np.isfinite(values) & (values >= 0))
+    if bad.any():
+        rows, cols = np.nonzero(bad)
+        raise InputError(f"{source}: {int(bad.sum())} landscape cell(s) have {what} that is negative or "
+                         f"missing (first: {float(values[rows[0], cols[0]]):g} at {_where(rows[0], cols[0], where)}). "
+                         + fix)
+
+
 def check_mortality(mortality, graph, *, source="mortality", where=None):
     """Check a per-cell death probability raster and return it as float64.
 
@@ -170,11 +180,7 @@ def node_crossing_time(graph, crossing_time, *, source="crossing time", where=No
     """
     values = _on_grid(crossing_time, graph, "crossing-time raster", source)
     cells = graph.node_of_cell >= graph.n_patches
-    bad = cells & ~(np.isfinite(values) & (values >= 0))
-    if bad.any():
-        rows, cols = np.nonzero(bad)
-        raise InputError(f"{source}: {int(bad.sum())} landscape cell(s) have a crossing time that is negative or "
-                         f"missing (first: {float(values[rows[0], cols[0]]):g} at {_where(rows[0], cols[0], where)}). "
+    _require_nonnegative(values, cells, "a crossing time", source, where,
                          "Crossing times are durations: give every landscape cell a value >= 0.")
     tau = np.zeros(graph.n_nodes)
     tau[graph.node_of_cell[cells]] = values[cells]
@@ -191,11 +197,7 @@ def node_source(graph, source_strength, *, source="source strength", where=None)
     """
     values = _on_grid(source_strength, graph, "source-strength raster", source)
     inside = graph.node_of_cell >= 0
-    bad = inside & ~(np.isfinite(values) & (values >= 0))
-    if bad.any():
-        rows, cols = np.nonzero(bad)
-        raise InputError(f"{source}: {int(bad.sum())} landscape cell(s) have a source strength that is negative or "
-                         f"missing (first: {float(values[rows[0], cols[0]]):g} at {_where(rows[0], cols[0], where)}). "
+    _require_nonnegative(values, inside, "a source strength", source, where,
                          "Give every landscape cell a value >= 0 (0 = no walkers released there).")
     s = np.bincount(graph.node_of_cell[inside], weights=values[inside], minlength=graph.n_nodes)
     if not s.sum() > 0:
