@@ -23,7 +23,7 @@ from skimage.graph import pixel_graph
 
 from .errors import InputError
 
-__all__ = ["CellGraph", "build_graph", "landscape_mask", "EDGE_RULES", "NEIGHBOURS"]
+__all__ = ["CellGraph", "build_graph", "landscape_mask", "nested_dissection_order", "EDGE_RULES", "NEIGHBOURS"]
 
 EDGE_RULES = ("mean_resistance", "mean_conductance")
 NEIGHBOURS = (4, 8)
@@ -240,3 +240,83 @@ def _number_nodes(labels):
     free = labels == 0
     node[free] = k + np.arange(free.sum())
     return patch_ids, node
+
+
+def nested_dissection_order(graph, *, leaf=16):
+    """A fill-reducing elimination order of the graph's nodes from the cells' positions.
+
+    Geometric nested dissection: the grid's bounding box is cut in two by one
+    row or column of cells (across its longer side), each half is ordered the
+    same way, recursively, and the cutting line comes after both halves; boxes
+    of at most ``leaf`` cells keep their row-major order. A line of cells
+    separates the halves for 4 and 8 neighbours alike. Patch nodes, which join
+    cells far apart, come last.
+
+    Parameters
+    ----------
+    graph : CellGraph
+    leaf : int
+        Largest box left undivided.
+
+    Returns
+    -------
+    ndarray of int64, shape (n_nodes,)
+        ``order[i]`` is the node eliminated i-th.
+
+    Notes
+    -----
+    Factorising a grid Laplacian of n cells in this order costs O(n^1.5) time
+    and O(n log n) memory, the least possible for 2-D grids up to constants
+    (George 1973, "Nested dissection of a regular finite element mesh",
+    SIAM J. Numer. Anal. 10:345, doi:10.1137/0710032). Computing the order
+    costs O(n log n) with about n / leaf slice assignments.
+
+    Examples
+    --------
+    A 1 x 5 strip of cells: the middle cell is the separator and comes last.
+
+    >>> from landflow.grid import Grid
+    >>> nested_dissection_order(build_graph(Grid.from_array([[1.0] * 5])), leaf=1)
+    array([0, 1, 3, 4, 2])
+    """
+    rank = _dissection_rank(graph.shape, max(int(leaf), 1))
+    k = graph.n_patches
+    cells = graph.node_of_cell
+    free = cells >= k
+    node_rank = np.empty(graph.n_nodes, dtype=np.int64)
+    node_rank[cells[free]] = rank[free]
+    node_rank[:k] = rank.size + np.arange(k)
+    return np.argsort(node_rank, kind="stable")
+
+
+def _dissection_rank(shape, leaf):
+    """Position of every cell of a rows x cols box in the nested-dissection order."""
+    rank = np.empty(shape, dtype=np.int64)
+    counter = 0
+
+    def put(r0, r1, c0, c1):
+        nonlocal counter
+        n = (r1 - r0) * (c1 - c0)
+        if n > 0:
+            rank[r0:r1, c0:c1] = (counter + np.arange(n)).reshape(r1 - r0, c1 - c0)
+            counter += n
+
+    def cut(r0, r1, c0, c1):
+        h, w = r1 - r0, c1 - c0
+        if h <= 0 or w <= 0:
+            return
+        if h * w <= leaf or min(h, w) <= 2 and max(h, w) <= leaf:
+            put(r0, r1, c0, c1)
+        elif h >= w:
+            m = r0 + h // 2
+            cut(r0, m, c0, c1)
+            cut(m + 1, r1, c0, c1)
+            put(m, m + 1, c0, c1)
+        else:
+            m = c0 + w // 2
+            cut(r0, r1, c0, m)
+            cut(r0, r1, m + 1, c1)
+            put(r0, r1, m, m + 1)
+
+    cut(0, shape[0], 0, shape[1])
+    return rank
