@@ -29,6 +29,7 @@ keeps the worst one and raises :class:`SolverError` past its tolerance.
 
 from __future__ import annotations
 
+import importlib.util
 import os
 import time
 
@@ -71,12 +72,12 @@ def choose_method(n_unknowns, n_rhs=1):
 
 
 def direct_engine():
-    """The engine method ``direct`` uses here: ``"pardiso"`` when :mod:`pypardiso` imports, else ``"superlu"``."""
-    try:
-        import pypardiso  # noqa: F401
-    except ImportError:
-        return "superlu"
-    return "pardiso"
+    """The engine method ``direct`` uses here: ``"pardiso"`` when :mod:`pypardiso` is installed, else ``"superlu"``.
+
+    Only looks for the package: importing it loads MKL, which is left out of
+    processes that do not use it.
+    """
+    return "pardiso" if importlib.util.find_spec("pypardiso") is not None else "superlu"
 
 
 class Solver:

@@ -98,7 +98,7 @@ def patch_voltages(graph, *, method="auto", tolerance=1e-8, progress=None):
         ground = members[0]
         n_unknowns = int(np.count_nonzero(comp == c)) - 1
         wanted = choose_method(n_unknowns, members.size - 1) if method == "auto" else method
-        if wanted in ("direct", "superlu") and direct_engine() == "superlu" or wanted == "superlu":
+        if wanted == "superlu" or wanted == "direct" and direct_engine() == "superlu":
             # Unknowns in nested-dissection order: the factor is then far sparser than with
             # SuperLU's own minimum-degree ordering on a grid (docs/performance.md).
             if order is None:
