@@ -31,7 +31,9 @@ from __future__ import annotations
 
 import importlib.util
 import os
+import sys
 import time
+from pathlib import Path
 
 import numpy as np
 import scipy.sparse as sp
@@ -125,9 +127,9 @@ class Solver:
                 raise SolverError(f"direct factorisation failed: {exc}") from exc
             del permuted
         elif self.engine == "pardiso":
+            _point_pypardiso_at_mkl()
             import pypardiso
-            # pypardiso searches the file system for MKL on every new solver unless told where
-            # it is; its import already found it once.
+            # pypardiso searches the file system for MKL on every new solver unless told where it is.
             os.environ.setdefault("PYPARDISO_MKL_RT", pypardiso.ps.libmkl._name)
             self._pardiso = pypardiso.PyPardisoSolver(mtype=2)  # real symmetric positive definite
             self._pardiso.set_statistical_info_off()
@@ -245,6 +247,14 @@ def factorize(matrix, *, method="auto", tolerance=1e-8, n_rhs=1, ordering=None):
             raise SolverError("solver method 'pardiso' needs the optional package pypardiso "
                               "(pip install 'landflow[fast]', x86-64 only); use 'direct' or 'superlu' instead.")
     return Solver(sp.csr_array(matrix), method, tolerance, engine=engine, ordering=ordering)
+
+
+def _point_pypardiso_at_mkl():
+    """Name MKL's runtime library for pypardiso when it sits in the usual place, sparing its recursive search."""
+    if "PYPARDISO_MKL_RT" not in os.environ:
+        found = sorted(Path(sys.prefix, "lib").glob("libmkl_rt.so*"), key=lambda p: len(p.name))
+        if found:
+            os.environ["PYPARDISO_MKL_RT"] = str(found[0])
 
 
 def _check_ordering(ordering, n):
