@@ -19,7 +19,6 @@ from functools import cached_property
 import numpy as np
 import scipy.sparse as sp
 from scipy.sparse.csgraph import connected_components
-from skimage.graph import pixel_graph
 
 from .errors import InputError
 
@@ -167,9 +166,11 @@ def build_graph(grid, patches=None, *, kind="resistance", neighbours=8, edge_rul
 
     Notes
     -----
-    Cost: O(cells * neighbours) time and memory. The grid graph comes from
-    :func:`skimage.graph.pixel_graph`; merging is the sparse product
-    P^T A P with P the cell-to-node aggregation matrix.
+    Cost: O(cells * neighbours) time and memory. Edges come from shifted
+    views of the grid, one per neighbour direction; each end is mapped to its
+    node (patch cells to their patch) and parallel edges are summed when the
+    sparse matrix is assembled, which is the aggregation P^T A P with P the
+    cell-to-node matrix, without forming the cell graph A.
 
     Examples
     --------
@@ -202,10 +203,7 @@ def build_graph(grid, patches=None, *, kind="resistance", neighbours=8, edge_rul
         def edge_function(a, b, d):
             return (a + b) / (2.0 * d)
 
-    cell_graph, cells = pixel_graph(
-        values, mask=mask, edge_function=edge_function,
-        connectivity=1 if neighbours == 4 else 2, spacing=(height, width), sparse_type="array",
-    )
+    cells = np.flatnonzero(mask.reshape(-1))
     labels = np.zeros(cells.size, dtype=np.int64)
     if patches is not None:
         patches = np.asarray(patches)
@@ -213,19 +211,46 @@ def build_graph(grid, patches=None, *, kind="resistance", neighbours=8, edge_rul
             raise InputError(f"patch labels have shape {patches.shape}, the grid {grid.shape}.")
         labels = patches.reshape(-1)[cells].astype(np.int64)
     patch_ids, node = _number_nodes(labels)
+    del labels
     n_nodes = int(node.max()) + 1 if node.size else 0
-    if patch_ids.size:
-        aggregate = sp.csr_array((np.ones(cells.size), (np.arange(cells.size), node)),
-                                 shape=(cells.size, n_nodes))
-        merged = (aggregate.T @ cell_graph @ aggregate).tocsr()
-        merged.setdiag(0)
-        merged.eliminate_zeros()
-    else:
-        merged = cell_graph.tocsr()
-    merged.sum_duplicates()
     node_of_cell = np.full(grid.shape, -1, dtype=np.int64)
     node_of_cell.reshape(-1)[cells] = node
+    del cells, node
+    merged = _edges_to_csr(values, mask, node_of_cell, n_nodes, neighbours, (height, width), edge_function)
     return CellGraph(merged, node_of_cell, patch_ids, grid.shape, neighbours, edge_rule)
+
+
+def _edges_to_csr(values, mask, node_of_cell, n_nodes, neighbours, spacing, edge_function):
+    """Symmetric node-to-node conductance matrix from the grid's neighbour pairs (no self-loops)."""
+    rows, cols = mask.shape
+    height, width = spacing
+    steps = [(0, 1, float(width)), (1, 0, float(height))]
+    if neighbours == 8:
+        diagonal = float(np.hypot(height, width))
+        steps += [(1, 1, diagonal), (1, -1, diagonal)]
+    heads, tails, conductances = [], [], []
+    for dr, dc, distance in steps:
+        here = (slice(0, rows - dr), slice(max(0, -dc), cols - max(0, dc)))
+        there = (slice(dr, rows), slice(max(0, dc), cols - max(0, -dc)))
+        both = mask[here] & mask[there]
+        a = node_of_cell[here][both]
+        b = node_of_cell[there][both]
+        c = edge_function(values[here][both], values[there][both], distance)
+        apart = a != b                                  # edges inside a patch vanish when it is merged
+        heads.append(a[apart])
+        tails.append(b[apart])
+        conductances.append(c[apart])
+    i = np.concatenate(heads)
+    j = np.concatenate(tails)
+    c = np.concatenate(conductances)
+    del heads, tails, conductances
+    index = np.int32 if n_nodes < 2**31 - 1 else np.int64
+    matrix = sp.coo_array((np.concatenate([c, c]), (np.concatenate([i, j]).astype(index),
+                                                   np.concatenate([j, i]).astype(index))),
+                          shape=(n_nodes, n_nodes)).tocsr()   # sums parallel edges
+    matrix.sum_duplicates()
+    matrix.eliminate_zeros()
+    return matrix
 
 
 def _number_nodes(labels):
