@@ -296,16 +296,20 @@ def run_case(name, args):
     folder = make_inputs(OUT / f"case_{name}", spec["n"], spec["k"])
     result = {"case": name, **spec, "load_before": os.getloadavg(), "date": _now()}
     result["graph"] = run_worker("prepare", folder)
-    engine = "pardiso" if have_pardiso() else "superlu-nd"
-    result["engine"] = engine
     result["auto"] = run_worker("landflow", folder, "auto")
+    chosen = (result["auto"].get("solvers") or [{}])[0]
+    if chosen.get("method") == "multigrid":
+        engine = "multigrid"
+    else:
+        engine = "pardiso" if chosen.get("engine", "pardiso" if have_pardiso() else "superlu") == "pardiso" else "superlu-nd"
+    result["engine"] = engine                       # the baselines use the engine landflow chose
     if name in ("1000", "1000k50") or args.all_engines:
         other = "superlu" if engine == "pardiso" else None
         if other:
             result["landflow_superlu"] = run_worker("landflow", folder, "superlu")
     if not args.skip_bare:
         result["bare_same"] = run_worker("bare", folder, engine)
-        if engine != "superlu-nd":
+        if engine == "pardiso":
             result["bare_superlu_nd"] = run_worker("bare", folder, "superlu-nd")
         if spec["n"] <= 1000:
             result["bare_scipy"] = run_worker("bare", folder, "superlu-mmd")

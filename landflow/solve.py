@@ -41,14 +41,23 @@ import scipy.sparse.linalg as sla
 
 from .errors import SolverError
 
-__all__ = ["factorize", "Solver", "METHODS", "DIRECT_MAX_UNKNOWNS", "choose_method", "direct_engine"]
+__all__ = ["factorize", "Solver", "METHODS", "DIRECT_MAX_UNKNOWNS", "DIRECT_ALWAYS_UNKNOWNS", "DIRECT_MIN_RHS",
+           "choose_method", "direct_engine"]
 
 METHODS = ("auto", "direct", "multigrid", "superlu", "pardiso")
 
 #: Above this many unknowns ``auto`` uses multigrid whatever the number of
-#: right-hand sides: the direct factor's memory grows as n log n and its time
-#: as n^1.5 on a grid (measured table in docs/performance.md).
+#: right-hand sides: the direct factor's memory grows as n log n (8.2 GB for SuperLU,
+#: 6.5 GB for Pardiso at 4 million unknowns, measured; docs/performance.md).
 DIRECT_MAX_UNKNOWNS = 4_000_000
+
+#: Up to this many unknowns the direct engines win even for one right-hand side
+#: (measured break-even below one right-hand side at 1 million unknowns).
+DIRECT_ALWAYS_UNKNOWNS = 1_500_000
+
+#: Between DIRECT_ALWAYS_UNKNOWNS and DIRECT_MAX_UNKNOWNS, ``auto`` factorises only
+#: for at least this many right-hand sides (measured break-even: 5 at 4 million).
+DIRECT_MIN_RHS = 5
 
 #: Relative residual a direct solve may show before it counts as failed.
 DIRECT_RESIDUAL_LIMIT = 1e-6
@@ -57,20 +66,26 @@ DIRECT_RESIDUAL_LIMIT = 1e-6
 def choose_method(n_unknowns, n_rhs=1):
     """The backend ``auto`` uses for a system of this size: ``"direct"`` or ``"multigrid"``.
 
-    Direct up to :data:`DIRECT_MAX_UNKNOWNS` unknowns, multigrid above. The
-    bound comes from the crossover table in docs/performance.md: on a 2-core
-    machine the nested-dissection factorisation plus its cheap solves beats
-    multigrid set-up plus one CG solve per right-hand side at every measured
-    size up to the bound, even for a single right-hand side, while above it
-    the factor's memory (n log n) and time (n^1.5) outgrow the machine.
-    ``n_rhs`` is accepted so the rule can depend on it; it currently does not.
+    From the crossover table in docs/performance.md (2-core machine, 8-neighbour
+    grids, log-normal resistance): a direct factorisation plus its cheap solves
+    beats multigrid set-up plus one CG solve per right-hand side at up to
+    :data:`DIRECT_ALWAYS_UNKNOWNS` unknowns even for one right-hand side; up to
+    :data:`DIRECT_MAX_UNKNOWNS` once there are :data:`DIRECT_MIN_RHS` or more;
+    above that bound the factor's memory (n log n) and time (n^1.5) outgrow
+    the machine and multigrid, linear in memory, takes over.
 
     Examples
     --------
-    >>> choose_method(1_000_000, 19), choose_method(16_000_000, 9)
-    ('direct', 'multigrid')
+    >>> choose_method(1_000_000, 1), choose_method(4_000_000, 49), choose_method(4_000_000, 2)
+    ('direct', 'direct', 'multigrid')
+    >>> choose_method(16_000_000, 9)
+    'multigrid'
     """
-    return "direct" if n_unknowns <= DIRECT_MAX_UNKNOWNS else "multigrid"
+    if n_unknowns <= DIRECT_ALWAYS_UNKNOWNS:
+        return "direct"
+    if n_unknowns <= DIRECT_MAX_UNKNOWNS and n_rhs >= DIRECT_MIN_RHS:
+        return "direct"
+    return "multigrid"
 
 
 def direct_engine():

@@ -28,10 +28,17 @@ class TestChooseMethod:
     def test_direct_up_to_the_documented_size(self):
         for n_rhs in (1, 9, 49, 1000):
             assert solve.choose_method(1_000, n_rhs) == "direct"
+            assert solve.choose_method(solve.DIRECT_ALWAYS_UNKNOWNS, n_rhs) == "direct"
+        for n_rhs in (solve.DIRECT_MIN_RHS, 49):
             assert solve.choose_method(solve.DIRECT_MAX_UNKNOWNS, n_rhs) == "direct"
 
+    def test_multigrid_for_few_right_hand_sides_in_the_middle_band(self):
+        for n_rhs in range(1, solve.DIRECT_MIN_RHS):
+            assert solve.choose_method(solve.DIRECT_ALWAYS_UNKNOWNS + 1, n_rhs) == "multigrid"
+            assert solve.choose_method(solve.DIRECT_MAX_UNKNOWNS, n_rhs) == "multigrid"
+
     def test_multigrid_above_the_documented_size(self):
-        for n_rhs in (1, 9, 49):
+        for n_rhs in (1, 9, 49, 1000):
             assert solve.choose_method(solve.DIRECT_MAX_UNKNOWNS + 1, n_rhs) == "multigrid"
             assert solve.choose_method(16_000_000, n_rhs) == "multigrid"
 
