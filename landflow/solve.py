@@ -165,6 +165,9 @@ class Solver:
 
     def solve(self, b):
         """Solve for one right-hand side (n,) or several (n, m); returns float64 of b's shape."""
+        if getattr(self, "_released", False):
+            raise SolverError(f"this {self.method} solver was released after its solves (Solver.release); "
+                              "factorise the system again to solve more right-hand sides.")
         b = np.asarray(b, dtype=np.float64)
         start = time.perf_counter()
         if self.engine == "superlu":
@@ -202,6 +205,7 @@ class Solver:
         if getattr(self, "_pardiso", None) is not None:
             self._pardiso.free_memory(everything=True)
         self._lu = self._ml = self._pardiso = self._upper = None
+        self._released = True
 
     def record(self):
         """A JSON-ready summary for the manifest."""

@@ -126,6 +126,14 @@ class TestErrors:
         with pytest.raises(SolverError, match="solver method must be one of auto, direct, multigrid"):
             solve.factorize(graph.laplacian()[1:, 1:], method="cholesky")
 
+    def test_released_solver_refuses_to_solve(self):
+        graph = lognormal_graph(6, 6, [(0, 0), (5, 5)])
+        voltages = lf.patch_voltages(graph, method="superlu")
+        solver = voltages.solvers[0]
+        assert solver.record()["right_hand_sides"] == 1
+        with pytest.raises(SolverError, match="was released after its solves"):
+            solver.solve(np.ones(solver.matrix.shape[0]))
+
     def test_pardiso_missing(self, monkeypatch):
         monkeypatch.setattr(solve, "direct_engine", lambda: "superlu")     # as on a machine without it
         graph = lognormal_graph(5, 5, [(0, 0), (4, 4)])
