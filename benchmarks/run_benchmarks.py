@@ -275,7 +275,9 @@ def run_worker(*args, timeout=3600):
     except subprocess.TimeoutExpired:
         return {"error": f"timed out after {timeout} s"}
     if proc.returncode != 0:
-        return {"error": proc.stderr.strip().splitlines()[-1] if proc.stderr.strip() else f"exit {proc.returncode}"}
+        error = proc.stderr.strip().splitlines()[-1] if proc.stderr.strip() else f"exit {proc.returncode}"
+        print("      failed:", error, flush=True)
+        return {"error": error}
     result = json.loads(proc.stdout.strip().splitlines()[-1])
     print("     ", {k: (round(v, 2) if isinstance(v, float) else v) for k, v in result.items()
                     if k not in ("timings", "solvers", "record")}, flush=True)
@@ -306,7 +308,8 @@ def run_case(name, args):
     spec = CASES[name]
     folder = make_inputs(OUT / f"case_{name}", spec["n"], spec["k"])
     result = {"case": name, **spec, "load_before": os.getloadavg(), "date": _now()}
-    result["graph"] = run_worker("prepare", folder)
+    if not args.skip_bare or args.naive_pairs > 0:
+        result["graph"] = run_worker("prepare", folder)
     result["auto"] = run_best(("landflow", folder, "auto"), args.repeat)
     chosen = (result["auto"].get("solvers") or [{}])[0]
     if chosen.get("method") == "multigrid":
