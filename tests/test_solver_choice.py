@@ -198,3 +198,12 @@ class TestCumulativeCurrentFastSum:
         expected = np.array([node_flow[(r, c)] for r in range(rows) for c in range(cols)])
         got = flow[graph.node_of_cell.ravel()]
         np.testing.assert_allclose(got, expected, rtol=1e-8)
+
+
+def test_right_hand_sides_in_blocks_give_the_same_voltages(monkeypatch):
+    from landflow.analyses import resistance
+    graph = lognormal_graph(30, 30, [(1, 1), (28, 3), (15, 15), (4, 26), (27, 27)], seed=9)
+    whole = lf.patch_voltages(graph, method="superlu").potential
+    monkeypatch.setattr(resistance, "RHS_BLOCK_VALUES", 2 * graph.n_nodes)   # two columns per block
+    blocked = lf.patch_voltages(graph, method="superlu").potential
+    np.testing.assert_array_equal(blocked, whole)

@@ -13,6 +13,9 @@ from ..solve import choose_method, direct_engine, factorize
 
 __all__ = ["PatchVoltages", "patch_voltages", "effective_resistance", "resistance_table"]
 
+#: Numbers per block of right-hand sides (32 M: 256 MB of float64).
+RHS_BLOCK_VALUES = 1 << 25
+
 
 @dataclass(eq=False)
 class PatchVoltages:
@@ -115,17 +118,22 @@ def patch_voltages(graph, *, method="auto", tolerance=1e-8, progress=None):
             progress(f"solving component with {keep.size:,} unknowns and {members.size} patches")
         solver = factorize(sub, method=wanted, tolerance=tolerance, n_rhs=members.size - 1, ordering=ordering)
         del sub
-        rhs = np.zeros((keep.size, members.size - 1))
         position = _positions(keep, members[1:])
-        rhs[position, np.arange(members.size - 1)] = 1.0
-        solution = solver.solve(rhs)
-        del rhs
+        sliced = keep.size == graph.n_nodes - 1 and ground == 0 and ordering is None
+        # Right-hand sides go in blocks of about RHS_BLOCK_VALUES numbers, so that the
+        # solver's temporary copies stay small next to the factor whatever k is.
+        width = max(1, RHS_BLOCK_VALUES // max(keep.size, 1))
+        for first in range(0, members.size - 1, width):
+            cols = np.arange(first, min(first + width, members.size - 1))
+            rhs = np.zeros((keep.size, cols.size))
+            rhs[position[cols], np.arange(cols.size)] = 1.0
+            solution = solver.solve(rhs)
+            if sliced:
+                potential[1:, members[1 + cols]] = solution
+            else:
+                potential[np.ix_(keep, members[1 + cols])] = solution
+            del rhs, solution
         solver.release()
-        if keep.size == graph.n_nodes - 1 and ground == 0 and ordering is None:
-            potential[1:, members[1:]] = solution
-        else:
-            potential[np.ix_(keep, members[1:])] = solution
-        del solution
         solvers.append(solver)
     return PatchVoltages(graph, potential, comp_of_patch, solvers)
 
