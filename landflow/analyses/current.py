@@ -7,8 +7,8 @@ import scipy.sparse as sp
 
 __all__ = ["edge_current", "pair_current", "cumulative_current", "pair_weights"]
 
-#: Edges handled at once when summing over pairs; bounds the temporary memory
-#: to about EDGE_BLOCK * k * 8 bytes.
+#: Sets the edges handled at once when summing over pairs: EDGE_BLOCK * 16 / k
+#: edges, so each (edges x k) temporary holds about 4 M numbers (32 MB) whatever k.
 EDGE_BLOCK = 262_144
 
 
@@ -85,7 +85,7 @@ def cumulative_current(voltages, weights=None, *, progress=None):
     Notes
     -----
     Cost: O(edges * k log k) with product-form weights, O(edges * k^2 / 2)
-    otherwise; temporary memory about 6 * 8 * EDGE_BLOCK * k / 16 bytes.
+    otherwise; a few temporaries of EDGE_BLOCK * 16 numbers each (32 MB).
     """
     graph = voltages.graph
     k = graph.n_patches
