@@ -14,17 +14,17 @@ resistance); patch nodes come first, in the order of ``patch_ids``.
 from __future__ import annotations
 
 from dataclasses import dataclass
-from typing import NamedTuple
 from functools import cached_property
+from typing import NamedTuple
 
 import numpy as np
 import scipy.sparse as sp
 from scipy.sparse.csgraph import connected_components
-from skimage.graph import pixel_graph
 
 from .errors import InputError
 
-__all__ = ["CellGraph", "CellEdges", "build_graph", "cell_edges", "landscape_mask", "EDGE_RULES", "NEIGHBOURS"]
+__all__ = ["CellGraph", "CellEdges", "build_graph", "cell_edges", "landscape_mask", "nested_dissection_order",
+           "EDGE_RULES", "NEIGHBOURS"]
 
 EDGE_RULES = ("mean_resistance", "mean_conductance")
 NEIGHBOURS = (4, 8)
@@ -168,9 +168,11 @@ def build_graph(grid, patches=None, *, kind="resistance", neighbours=8, edge_rul
 
     Notes
     -----
-    Cost: O(cells * neighbours) time and memory. The grid graph comes from
-    :func:`skimage.graph.pixel_graph`; merging is the sparse product
-    P^T A P with P the cell-to-node aggregation matrix.
+    Cost: O(cells * neighbours) time and memory. Edges come from shifted
+    views of the grid, one per neighbour direction; each end is mapped to its
+    node (patch cells to their patch) and parallel edges are summed when the
+    sparse matrix is assembled, which is the aggregation P^T A P with P the
+    cell-to-node matrix, without forming the cell graph A.
 
     Examples
     --------
@@ -183,30 +185,8 @@ def build_graph(grid, patches=None, *, kind="resistance", neighbours=8, edge_rul
            [1., 0., 1.],
            [0., 1., 0.]])
     """
-    if neighbours not in NEIGHBOURS:
-        raise InputError(f"neighbours must be 4 or 8, got {neighbours!r}.")
-    if edge_rule not in EDGE_RULES:
-        raise InputError(f"edge_rule must be one of {', '.join(EDGE_RULES)}; got {edge_rule!r}.")
-    mask = landscape_mask(grid, kind)
-    width, height = grid.cell_size
-    rule = edge_rule
-    if kind == "conductance" and rule == "mean_resistance":
-        values = np.divide(1.0, grid.values, where=mask, out=np.ones_like(grid.values))
-    elif kind == "resistance" and rule == "mean_conductance":
-        values = np.divide(1.0, grid.values, where=mask, out=np.ones_like(grid.values))
-    else:
-        values = grid.values
-    if rule == "mean_resistance":
-        def edge_function(a, b, d):
-            return 2.0 / (d * (a + b))
-    else:
-        def edge_function(a, b, d):
-            return (a + b) / (2.0 * d)
-
-    cell_graph, cells = pixel_graph(
-        values, mask=mask, edge_function=edge_function,
-        connectivity=1 if neighbours == 4 else 2, spacing=(height, width), sparse_type="array",
-    )
+    mask, values, edge_function = _surface(grid, kind, neighbours, edge_rule)
+    cells = np.flatnonzero(mask.reshape(-1))
     labels = np.zeros(cells.size, dtype=np.int64)
     if patches is not None:
         patches = np.asarray(patches)
@@ -214,19 +194,78 @@ def build_graph(grid, patches=None, *, kind="resistance", neighbours=8, edge_rul
             raise InputError(f"patch labels have shape {patches.shape}, the grid {grid.shape}.")
         labels = patches.reshape(-1)[cells].astype(np.int64)
     patch_ids, node = _number_nodes(labels)
+    del labels
     n_nodes = int(node.max()) + 1 if node.size else 0
-    if patch_ids.size:
-        aggregate = sp.csr_array((np.ones(cells.size), (np.arange(cells.size), node)),
-                                 shape=(cells.size, n_nodes))
-        merged = (aggregate.T @ cell_graph @ aggregate).tocsr()
-        merged.setdiag(0)
-        merged.eliminate_zeros()
-    else:
-        merged = cell_graph.tocsr()
-    merged.sum_duplicates()
     node_of_cell = np.full(grid.shape, -1, dtype=np.int64)
     node_of_cell.reshape(-1)[cells] = node
+    del cells, node
+    merged = _edges_to_csr(values, mask, node_of_cell, n_nodes, neighbours, grid.cell_size, edge_function)
     return CellGraph(merged, node_of_cell, patch_ids, grid.shape, neighbours, edge_rule)
+
+
+def _surface(grid, kind, neighbours, edge_rule):
+    """Check the options and the values; return the node mask, the values the rule averages, and the rule.
+
+    ``mean_resistance`` averages resistance (1/conductance on a conductance surface) and
+    ``mean_conductance`` averages conductance (1/resistance on a resistance surface).
+    """
+    if neighbours not in NEIGHBOURS:
+        raise InputError(f"neighbours must be 4 or 8, got {neighbours!r}.")
+    if edge_rule not in EDGE_RULES:
+        raise InputError(f"edge_rule must be one of {', '.join(EDGE_RULES)}; got {edge_rule!r}.")
+    mask = landscape_mask(grid, kind)
+    averages_resistance = edge_rule == "mean_resistance"
+    if averages_resistance == (kind == "resistance"):
+        values = grid.values
+    else:
+        values = np.divide(1.0, grid.values, where=mask, out=np.ones_like(grid.values))
+    if averages_resistance:
+        def edge_function(a, b, d):
+            return 2.0 / (d * (a + b))
+    else:
+        def edge_function(a, b, d):
+            return (a + b) / (2.0 * d)
+    return mask, values, edge_function
+
+
+def _neighbour_steps(shape, neighbours, cell_size):
+    """For each neighbour direction: slices ``here`` and ``there`` pairing every cell with that
+    neighbour, and their centre distance. The neighbour always has the larger flat index."""
+    rows, cols = shape
+    width, height = cell_size
+    steps = [(0, 1, float(width)), (1, 0, float(height))]
+    if neighbours == 8:
+        diagonal = float(np.hypot(height, width))
+        steps += [(1, 1, diagonal), (1, -1, diagonal)]
+    for dr, dc, distance in steps:
+        here = (slice(0, rows - dr), slice(max(0, -dc), cols - max(0, dc)))
+        there = (slice(dr, rows), slice(max(0, dc), cols - max(0, -dc)))
+        yield here, there, distance
+
+
+def _edges_to_csr(values, mask, node_of_cell, n_nodes, neighbours, cell_size, edge_function):
+    """Symmetric node-to-node conductance matrix from the grid's neighbour pairs (no self-loops)."""
+    heads, tails, conductances = [], [], []
+    for here, there, distance in _neighbour_steps(mask.shape, neighbours, cell_size):
+        both = mask[here] & mask[there]
+        a = node_of_cell[here][both]
+        b = node_of_cell[there][both]
+        c = edge_function(values[here][both], values[there][both], distance)
+        apart = a != b                                  # edges inside a patch vanish when it is merged
+        heads.append(a[apart])
+        tails.append(b[apart])
+        conductances.append(c[apart])
+    i = np.concatenate(heads)
+    j = np.concatenate(tails)
+    c = np.concatenate(conductances)
+    del heads, tails, conductances
+    index = np.int32 if n_nodes < 2**31 - 1 else np.int64
+    matrix = sp.coo_array((np.concatenate([c, c]), (np.concatenate([i, j]).astype(index),
+                                                   np.concatenate([j, i]).astype(index))),
+                          shape=(n_nodes, n_nodes)).tocsr()   # sums parallel edges
+    matrix.sum_duplicates()
+    matrix.eliminate_zeros()
+    return matrix
 
 
 def _number_nodes(labels):
@@ -290,28 +329,93 @@ def cell_edges(grid, *, kind="resistance", neighbours=8, edge_rule="mean_resista
     >>> e.cell_i, e.cell_j, e.distance, e.conductance
     (array([0]), array([1]), array([2.]), array([0.25]))
     """
-    if neighbours not in NEIGHBOURS:
-        raise InputError(f"neighbours must be 4 or 8, got {neighbours!r}.")
-    if edge_rule not in EDGE_RULES:
-        raise InputError(f"edge_rule must be one of {', '.join(EDGE_RULES)}; got {edge_rule!r}.")
-    mask = landscape_mask(grid, kind)
-    width, height = grid.cell_size
-    distance_graph, cells = pixel_graph(
-        mask, mask=mask, edge_function=lambda a, b, d: d,
-        connectivity=1 if neighbours == 4 else 2, spacing=(height, width), sparse_type="array",
-    )
-    upper = sp.triu(distance_graph, k=1, format="coo")
-    cell_i = cells[upper.row].astype(np.int64)
-    cell_j = cells[upper.col].astype(np.int64)
-    d = upper.data.astype(np.float64)
-    flat = grid.values.reshape(-1)
-    a, b = flat[cell_i], flat[cell_j]
-    if kind == "conductance" and edge_rule == "mean_resistance":
-        conductance = 2.0 / (d * (1.0 / a + 1.0 / b))
-    elif kind == "resistance" and edge_rule == "mean_conductance":
-        conductance = (1.0 / a + 1.0 / b) / (2.0 * d)
-    elif edge_rule == "mean_resistance":
-        conductance = 2.0 / (d * (a + b))
-    else:
-        conductance = (a + b) / (2.0 * d)
-    return CellEdges(cell_i, cell_j, d, conductance)
+    mask, values, edge_function = _surface(grid, kind, neighbours, edge_rule)
+    flat = np.arange(mask.size, dtype=np.int64).reshape(mask.shape)
+    parts = []
+    for here, there, distance in _neighbour_steps(mask.shape, neighbours, grid.cell_size):
+        both = mask[here] & mask[there]
+        parts.append((flat[here][both], flat[there][both], np.full(int(both.sum()), distance),
+                      edge_function(values[here][both], values[there][both], distance)))
+    cell_i, cell_j, d, conductance = (np.concatenate(column) for column in zip(*parts))
+    order = np.lexsort((cell_j, cell_i))            # by first cell, then second: row-major
+    return CellEdges(cell_i[order], cell_j[order], d[order], conductance[order])
+
+
+def nested_dissection_order(graph, *, leaf=16):
+    """A fill-reducing elimination order of the graph's nodes from the cells' positions.
+
+    Geometric nested dissection: the grid's bounding box is cut in two by one
+    row or column of cells (across its longer side), each half is ordered the
+    same way, recursively, and the cutting line comes after both halves; boxes
+    of at most ``leaf`` cells keep their row-major order. A line of cells
+    separates the halves for 4 and 8 neighbours alike. Patch nodes, which join
+    cells far apart, come last.
+
+    Parameters
+    ----------
+    graph : CellGraph
+    leaf : int
+        Largest box left undivided.
+
+    Returns
+    -------
+    ndarray of int64, shape (n_nodes,)
+        ``order[i]`` is the node eliminated i-th.
+
+    Notes
+    -----
+    Factorising a grid Laplacian of n cells in this order costs O(n^1.5) time
+    and O(n log n) memory, the least possible for 2-D grids up to constants
+    (George 1973, "Nested dissection of a regular finite element mesh",
+    SIAM J. Numer. Anal. 10:345, doi:10.1137/0710032). Computing the order
+    costs O(n log n) with about n / leaf slice assignments.
+
+    Examples
+    --------
+    A 1 x 5 strip of cells: the middle cell is the separator and comes last.
+
+    >>> from landflow.grid import Grid
+    >>> nested_dissection_order(build_graph(Grid.from_array([[1.0] * 5])), leaf=1)
+    array([0, 1, 3, 4, 2])
+    """
+    rank = _dissection_rank(graph.shape, max(int(leaf), 1))
+    k = graph.n_patches
+    cells = graph.node_of_cell
+    free = cells >= k
+    node_rank = np.empty(graph.n_nodes, dtype=np.int64)
+    node_rank[cells[free]] = rank[free]
+    node_rank[:k] = rank.size + np.arange(k)
+    return np.argsort(node_rank, kind="stable")
+
+
+def _dissection_rank(shape, leaf):
+    """Position of every cell of a rows x cols box in the nested-dissection order."""
+    rank = np.empty(shape, dtype=np.int64)
+    counter = 0
+
+    def put(r0, r1, c0, c1):
+        nonlocal counter
+        n = (r1 - r0) * (c1 - c0)
+        if n > 0:
+            rank[r0:r1, c0:c1] = (counter + np.arange(n)).reshape(r1 - r0, c1 - c0)
+            counter += n
+
+    def cut(r0, r1, c0, c1):
+        h, w = r1 - r0, c1 - c0
+        if h <= 0 or w <= 0:
+            return
+        if h * w <= leaf or min(h, w) <= 2 and max(h, w) <= leaf:
+            put(r0, r1, c0, c1)
+        elif h >= w:
+            m = r0 + h // 2
+            cut(r0, m, c0, c1)
+            cut(m + 1, r1, c0, c1)
+            put(m, m + 1, c0, c1)
+        else:
+            m = c0 + w // 2
+            cut(r0, r1, c0, m)
+            cut(r0, r1, m + 1, c1)
+            put(r0, r1, m, m + 1)
+
+    cut(0, shape[0], 0, shape[1])
+    return rank

@@ -2,22 +2,39 @@
 
 Two backends behind one interface:
 
-* ``direct``: sparse LU factorisation (SuperLU through :func:`scipy.sparse.linalg.splu`)
-  with a symmetric fill-reducing ordering. Exact to rounding; best up to a few
-  million cells and for many right-hand sides.
+* ``direct``: sparse factorisation, exact to rounding; best up to a few
+  million cells and for many right-hand sides. Two engines:
+
+  - ``superlu``: SuperLU through :func:`scipy.sparse.linalg.splu`, always
+    available. Given a fill-reducing ``ordering`` (for grids,
+    :func:`landflow.graph.nested_dissection_order`) it factorises the
+    permuted matrix in that order; otherwise it uses SuperLU's minimum degree
+    ordering of A^T + A.
+  - ``pardiso``: Intel MKL Pardiso through the optional :mod:`pypardiso`
+    package (``pip install landflow[fast]``, x86-64 only), a multithreaded
+    Cholesky-type factorisation with its own nested-dissection ordering.
+
+  Method ``direct`` uses Pardiso when :mod:`pypardiso` can be imported and
+  SuperLU otherwise; methods ``superlu`` and ``pardiso`` ask for one engine.
 * ``multigrid``: smoothed-aggregation algebraic multigrid (:mod:`pyamg`) as a
   preconditioner for conjugate gradients. Memory grows linearly with the grid;
   best for the largest grids and few right-hand sides.
 
-``auto`` picks between them by the number of unknowns (see :data:`DIRECT_MAX_UNKNOWNS`).
+``auto`` picks between them by the number of unknowns and right-hand sides,
+following crossovers measured with ``benchmarks/run_benchmarks.py --case
+crossover`` (see :func:`choose_method` and docs/performance.md).
 Every solve computes its relative residual ``||b - A x|| / ||b||``; the solver
 keeps the worst one and raises :class:`SolverError` past its tolerance.
 """
 
 from __future__ import annotations
 
+import importlib.util
+import os
+import sys
 import threading
 import time
+from pathlib import Path
 
 import numpy as np
 import scipy.sparse as sp
@@ -25,21 +42,64 @@ import scipy.sparse.linalg as sla
 
 from .errors import SolverError
 
-__all__ = ["factorize", "Solver", "METHODS", "DIRECT_MAX_UNKNOWNS", "choose_method"]
+__all__ = ["factorize", "Solver", "METHODS", "DIRECT_MAX_UNKNOWNS", "DIRECT_ALWAYS_UNKNOWNS", "DIRECT_MIN_RHS",
+           "choose_method", "direct_engine"]
 
-METHODS = ("auto", "direct", "multigrid")
+METHODS = ("auto", "direct", "multigrid", "superlu", "pardiso")
 
-#: Above this many unknowns ``auto`` uses multigrid (the direct factor's memory
-#: grows faster than linearly in the grid size).
+#: Above this many unknowns ``auto`` uses multigrid whatever the number of
+#: right-hand sides: the direct factor's memory grows as n log n (8.2 GB for SuperLU,
+#: 6.5 GB for Pardiso at 4 million unknowns, measured; docs/performance.md).
 DIRECT_MAX_UNKNOWNS = 4_000_000
+
+#: Up to this many unknowns the direct engines win even for one right-hand side
+#: (measured break-even below one right-hand side at 1 million unknowns).
+DIRECT_ALWAYS_UNKNOWNS = 1_500_000
+
+#: Between DIRECT_ALWAYS_UNKNOWNS and DIRECT_MAX_UNKNOWNS, ``auto`` factorises only
+#: for at least this many right-hand sides (measured break-even: 5 at 4 million).
+DIRECT_MIN_RHS = 5
 
 #: Relative residual a direct solve may show before it counts as failed.
 DIRECT_RESIDUAL_LIMIT = 1e-6
 
 
+_SINGULAR = ("The system is singular: some part of the graph is not tied to a grounded node "
+             "(an ungrounded Laplacian).")
+
+
 def choose_method(n_unknowns, n_rhs=1):
-    """The backend ``auto`` uses for a system of this size."""
-    return "direct" if n_unknowns <= DIRECT_MAX_UNKNOWNS else "multigrid"
+    """The backend ``auto`` uses for a system of this size: ``"direct"`` or ``"multigrid"``.
+
+    From the crossover table in docs/performance.md (2-core machine, 8-neighbour
+    grids, log-normal resistance): a direct factorisation plus its cheap solves
+    beats multigrid set-up plus one CG solve per right-hand side at up to
+    :data:`DIRECT_ALWAYS_UNKNOWNS` unknowns even for one right-hand side; up to
+    :data:`DIRECT_MAX_UNKNOWNS` once there are :data:`DIRECT_MIN_RHS` or more;
+    above that bound the factor's memory (n log n) and time (n^1.5) outgrow
+    the machine and multigrid, linear in memory, takes over.
+
+    Examples
+    --------
+    >>> choose_method(1_000_000, 1), choose_method(4_000_000, 49), choose_method(4_000_000, 2)
+    ('direct', 'direct', 'multigrid')
+    >>> choose_method(16_000_000, 9)
+    'multigrid'
+    """
+    if n_unknowns <= DIRECT_ALWAYS_UNKNOWNS:
+        return "direct"
+    if n_unknowns <= DIRECT_MAX_UNKNOWNS and n_rhs >= DIRECT_MIN_RHS:
+        return "direct"
+    return "multigrid"
+
+
+def direct_engine():
+    """The engine method ``direct`` uses here: ``"pardiso"`` when :mod:`pypardiso` is installed, else ``"superlu"``.
+
+    Only looks for the package: importing it loads MKL, which is left out of
+    processes that do not use it.
+    """
+    return "pardiso" if importlib.util.find_spec("pypardiso") is not None else "superlu"
 
 
 class Solver:
@@ -49,6 +109,8 @@ class Solver:
     ----------
     method : str
         ``"direct"`` or ``"multigrid"``.
+    engine : str
+        ``"superlu"``, ``"pardiso"`` or ``"pyamg"``.
     setup_seconds : float
     worst_residual : float
         The largest relative residual seen so far.
@@ -56,22 +118,47 @@ class Solver:
         CG iterations per right-hand side (multigrid only).
     """
 
-    def __init__(self, matrix, method, tolerance):
+    def __init__(self, matrix, method, tolerance, *, engine=None, ordering=None):
         self.matrix = matrix
         self.method = method
+        self.engine = engine or ("pyamg" if method == "multigrid" else "superlu")
         self.tolerance = tolerance
         self.worst_residual = 0.0
         self.iterations = []
         self.n_solved = 0
         self.solve_seconds = 0.0
+        self.ordering = None
         start = time.perf_counter()
-        if method == "direct":
+        if self.engine == "superlu":
+            if ordering is not None:
+                ordering = _check_ordering(ordering, matrix.shape[0])
+                if np.array_equal(ordering, np.arange(ordering.size)):
+                    permuted = matrix.tocsc()       # already in the wanted order: no copy of the permutation
+                else:
+                    self.ordering = ordering
+                    permuted = matrix[ordering][:, ordering].tocsc()
+                spec = "NATURAL"
+            else:
+                permuted, spec = matrix.tocsc(), "MMD_AT_PLUS_A"
             try:
-                self._lu = sla.splu(matrix.tocsc(), permc_spec="MMD_AT_PLUS_A",
+                self._lu = sla.splu(permuted, permc_spec=spec,
                                     diag_pivot_thresh=0.0, options={"SymmetricMode": True})
             except RuntimeError as exc:  # singular: an ungrounded component
-                raise SolverError(f"direct factorisation failed: {exc}. The system is singular: some part of "
-                                  "the graph is not tied to a grounded node (an ungrounded Laplacian).") from exc
+                raise SolverError(f"direct factorisation (superlu) failed: {exc}. {_SINGULAR}") from exc
+            del permuted
+        elif self.engine == "pardiso":
+            _point_pypardiso_at_mkl()
+            import pypardiso
+            # pypardiso searches the file system for MKL on every new solver unless told where it is.
+            os.environ.setdefault("PYPARDISO_MKL_RT", pypardiso.ps.libmkl._name)
+            self._pardiso = pypardiso.PyPardisoSolver(mtype=2)  # real symmetric positive definite
+            self._pardiso.set_statistical_info_off()
+            self._upper = sp.triu(sp.csr_matrix(matrix), format="csr")
+            self._upper.sort_indices()
+            try:
+                self._pardiso.factorize(self._upper)
+            except Exception as exc:  # pypardiso raises its own error class on a failed phase
+                raise SolverError(f"direct factorisation (pardiso) failed: {exc}. {_SINGULAR}") from exc
         else:
             self._ml = _multigrid_hierarchy(matrix.tocsr())
         self.setup_seconds = time.perf_counter() - start
@@ -82,10 +169,20 @@ class Solver:
 
     def solve(self, b):
         """Solve for one right-hand side (n,) or several (n, m); returns float64 of b's shape."""
+        if getattr(self, "_released", False):
+            raise SolverError(f"this {self.method} solver was released after its solves (Solver.release); "
+                              "factorise the system again to solve more right-hand sides.")
         b = np.asarray(b, dtype=np.float64)
         start = time.perf_counter()
-        if self.method == "direct":
-            x = self._lu.solve(b)
+        if self.engine == "superlu":
+            if self.ordering is None:
+                x = self._lu.solve(b)
+            else:
+                x = np.empty_like(b)
+                x[self.ordering] = self._lu.solve(b[self.ordering])
+            limit = max(DIRECT_RESIDUAL_LIMIT, self.tolerance)
+        elif self.engine == "pardiso":
+            x = np.asarray(self._pardiso.solve(self._upper, b)).reshape(b.shape)
             limit = max(DIRECT_RESIDUAL_LIMIT, self.tolerance)
         else:
             x = np.column_stack([self._cg(col) for col in b.reshape(b.shape[0], -1).T]).reshape(b.shape)
@@ -109,9 +206,16 @@ class Solver:
         self.iterations.append(len(residuals) - 1)
         return x
 
+    def release(self):
+        """Free the factor or multigrid hierarchy; :meth:`record` still works, :meth:`solve` no longer does."""
+        if getattr(self, "_pardiso", None) is not None:
+            self._pardiso.free_memory(everything=True)
+        self._lu = self._ml = self._pardiso = self._upper = None
+        self._released = True
+
     def record(self):
         """A JSON-ready summary for the manifest."""
-        out = {"method": self.method, "unknowns": int(self.matrix.shape[0]),
+        out = {"method": self.method, "engine": self.engine, "unknowns": int(self.matrix.shape[0]),
                "right_hand_sides": self.n_solved, "worst_relative_residual": float(self.worst_residual),
                "setup_seconds": round(self.setup_seconds, 3), "solve_seconds": round(self.solve_seconds, 3)}
         if self.iterations:
@@ -141,29 +245,71 @@ def _multigrid_hierarchy(matrix):
             np.random.set_state(state)
 
 
-def factorize(matrix, *, method="auto", tolerance=1e-8, n_rhs=1):
+def factorize(matrix, *, method="auto", tolerance=1e-8, n_rhs=1, ordering=None):
     """Prepare a symmetric positive definite sparse system for repeated solves.
 
     Parameters
     ----------
     matrix : sparse array, shape (n, n)
         A grounded Laplacian (or another SPD M-matrix).
-    method : {"auto", "direct", "multigrid"}
+    method : {"auto", "direct", "multigrid", "superlu", "pardiso"}
+        ``auto`` follows :func:`choose_method`; ``direct`` uses
+        :func:`direct_engine`; ``superlu`` and ``pardiso`` name a direct engine.
     tolerance : float
         Relative residual target of the multigrid solves; direct solves are
         checked against ``max(tolerance, 1e-6)``.
     n_rhs : int
         How many right-hand sides are expected; informs ``auto``.
+    ordering : ndarray of int, shape (n,), optional
+        A fill-reducing permutation for the SuperLU engine: unknown
+        ``ordering[i]`` is eliminated i-th. Ignored by the other engines.
 
     Returns
     -------
     Solver
+
+    Raises
+    ------
+    SolverError
+        Unknown method; ``pardiso`` asked for but :mod:`pypardiso` missing;
+        the factorisation failed (a singular, ungrounded system).
+
+    Notes
+    -----
+    Cost on a 2-D grid of n cells with a nested-dissection ordering
+    (George 1973, "Nested dissection of a regular finite element mesh",
+    SIAM J. Numer. Anal. 10:345, doi:10.1137/0710032): factorisation
+    O(n^1.5) time and O(n log n) memory, each solve O(n log n).
     """
     if method not in METHODS:
         raise SolverError(f"solver method must be one of {', '.join(METHODS)}; got {method!r}.")
     if method == "auto":
         method = choose_method(matrix.shape[0], n_rhs)
-    return Solver(sp.csr_array(matrix), method, tolerance)
+    engine = None
+    if method == "direct":
+        engine = direct_engine()
+    elif method in ("superlu", "pardiso"):
+        engine, method = method, "direct"
+        if engine == "pardiso" and direct_engine() != "pardiso":
+            raise SolverError("solver method 'pardiso' needs the optional package pypardiso "
+                              "(pip install 'landflow[fast]', x86-64 only); use 'direct' or 'superlu' instead.")
+    return Solver(sp.csr_array(matrix), method, tolerance, engine=engine, ordering=ordering)
+
+
+def _point_pypardiso_at_mkl():
+    """Name MKL's runtime library for pypardiso when it sits in the usual place, sparing its recursive search."""
+    if "PYPARDISO_MKL_RT" not in os.environ:
+        found = sorted(Path(sys.prefix, "lib").glob("libmkl_rt.so*"), key=lambda p: len(p.name))
+        if found:
+            os.environ["PYPARDISO_MKL_RT"] = str(found[0])
+
+
+def _check_ordering(ordering, n):
+    ordering = np.asarray(ordering, dtype=np.int64)
+    if ordering.shape != (n,) or not np.array_equal(np.bincount(ordering, minlength=n), np.ones(n, np.int64)):
+        raise SolverError(f"ordering must be a permutation of 0..{n - 1}; got an array of shape "
+                          f"{ordering.shape} that is not one.")
+    return ordering
 
 
 def _relative_residual(matrix, x, b):

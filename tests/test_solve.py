@@ -7,7 +7,7 @@ import pytest
 import scipy.sparse as sp
 
 import landflow as lf
-from landflow.solve import DIRECT_MAX_UNKNOWNS, choose_method, factorize
+from landflow.solve import DIRECT_MAX_UNKNOWNS, DIRECT_MIN_RHS, choose_method, direct_engine, factorize
 
 
 @pytest.fixture(scope="module")
@@ -47,21 +47,26 @@ class TestBackendsAgree:
         assert np.linalg.norm(grounded @ x - b) <= 1e-10 * np.linalg.norm(b)
 
     def test_auto_picks_direct_up_to_the_limit(self, grounded):
-        assert choose_method(DIRECT_MAX_UNKNOWNS) == "direct"
-        assert choose_method(DIRECT_MAX_UNKNOWNS + 1) == "multigrid"
+        assert choose_method(DIRECT_MAX_UNKNOWNS, n_rhs=DIRECT_MIN_RHS) == "direct"
+        assert choose_method(DIRECT_MAX_UNKNOWNS + 1, n_rhs=DIRECT_MIN_RHS) == "multigrid"
         assert factorize(grounded).method == "direct"
 
 
+needs_pardiso = pytest.mark.skipif(direct_engine() != "pardiso",
+                                   reason="pypardiso (the 'fast' extra) is not installed")
+
+
 class TestFailures:
-    def test_exactly_singular_system_fails_to_factorise(self):
+    @pytest.mark.parametrize("engine", ["superlu", pytest.param("pardiso", marks=needs_pardiso)])
+    def test_exactly_singular_system_fails_to_factorise(self, engine):
         matrix = sp.csr_array(np.diag([1.0, 0.0, 2.0]))     # an isolated, ungrounded node
-        with pytest.raises(lf.SolverError, match=r"direct factorisation failed: .*singular.*grounded"):
-            factorize(matrix, method="direct")
+        with pytest.raises(lf.SolverError, match=rf"direct factorisation \({engine}\) failed: .*singular.*grounded"):
+            factorize(matrix, method=engine)
 
     def test_ungrounded_unit_laplacian_is_exactly_singular(self):
         laplacian = lf.build_graph(lf.Grid.from_array(np.ones((6, 6)))).laplacian()
         with pytest.raises(lf.SolverError, match="Factor is exactly singular. The system is singular"):
-            factorize(laplacian, method="direct")
+            factorize(laplacian, method="superlu")
 
     def test_ungrounded_laplacian_fails_its_residual_check(self):
         # with irrational conductances rounding hides the zero pivot; the residual check catches it
@@ -69,11 +74,11 @@ class TestFailures:
         laplacian = lf.build_graph(lf.Grid.from_array(values)).laplacian()
         b = np.zeros(36)
         b[0] = 1.0                                            # current in, none out: no solution
-        for method, fix in [("direct", "singular or nearly so"), ("multigrid", "Try solver method 'direct'")]:
+        for method, fix in [("superlu", "singular or nearly so"), ("multigrid", "Try solver method 'direct'")]:
             solver = factorize(laplacian, method=method)
             # pyamg's CG notices the indefinite system and warns (its own filter shows the warning always)
             noticed = pytest.warns(UserWarning, match="Indefinite") if method == "multigrid" else nullcontext()
-            with noticed, pytest.raises(lf.SolverError, match=rf"{method} solve reached relative residual .*{fix}") as err:
+            with noticed, pytest.raises(lf.SolverError, match=rf"{solver.method} solve reached relative residual .*{fix}") as err:
                 solver.solve(b)
             assert err.value.residual > 1e-6
 
@@ -87,7 +92,7 @@ class TestFailures:
         assert isinstance(err.value, RuntimeError)            # catchable as a builtin, too
 
     def test_unknown_method(self, grounded):
-        with pytest.raises(lf.SolverError, match="solver method must be one of auto, direct, multigrid; got 'fast'"):
+        with pytest.raises(lf.SolverError, match="solver method must be one of auto, direct, multigrid, superlu, pardiso; got 'fast'"):
             factorize(grounded, method="fast")
 
 

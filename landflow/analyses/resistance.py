@@ -8,9 +8,13 @@ import numpy as np
 import pandas as pd
 
 from ..errors import InputError
-from ..solve import factorize
+from ..graph import nested_dissection_order
+from ..solve import choose_method, direct_engine, factorize
 
 __all__ = ["PatchVoltages", "patch_voltages", "effective_resistance", "resistance_table"]
+
+#: Numbers per block of right-hand sides (32 M: 256 MB of float64).
+RHS_BLOCK_VALUES = 1 << 25
 
 
 @dataclass(eq=False)
@@ -72,6 +76,13 @@ def patch_voltages(graph, *, method="auto", tolerance=1e-8, progress=None):
     Returns
     -------
     PatchVoltages
+
+    Notes
+    -----
+    With the SuperLU engine the unknowns are put in the geometric
+    nested-dissection order of :func:`landflow.graph.nested_dissection_order`
+    before factorising. Each solver's factor is freed once its solves are
+    done (``solvers`` keep their statistics for the manifest).
     """
     k = graph.n_patches
     if k < 2:
@@ -81,22 +92,48 @@ def patch_voltages(graph, *, method="auto", tolerance=1e-8, progress=None):
     comp_of_patch = comp[:k]
     potential = np.zeros((graph.n_nodes, k))
     laplacian = graph.laplacian()
+    order = None
     solvers = []
     for c in np.unique(comp_of_patch):
         members = np.flatnonzero(comp_of_patch == c)
         if members.size < 2:
             continue
         ground = members[0]
-        nodes = np.flatnonzero(comp == c)
-        keep = nodes[nodes != ground]               # unknowns, in node order
-        sub = laplacian[keep][:, keep]
+        n_unknowns = int(np.count_nonzero(comp == c)) - 1
+        wanted = choose_method(n_unknowns, members.size - 1) if method == "auto" else method
+        if wanted == "superlu" or wanted == "direct" and direct_engine() == "superlu":
+            # Unknowns in nested-dissection order: the factor is then far sparser than with
+            # SuperLU's own minimum-degree ordering on a grid (docs/performance.md).
+            if order is None:
+                order = nested_dissection_order(graph)
+            keep = order[(comp[order] == c) & (order != ground)]
+            ordering = np.arange(keep.size)
+        else:
+            keep = np.flatnonzero(comp == c)
+            keep = keep[keep != ground]
+            ordering = None
+        sub = laplacian[1:, 1:] if keep.size == graph.n_nodes - 1 and ordering is None and ground == 0 \
+            else laplacian[keep][:, keep]
         if progress:
             progress(f"solving component with {keep.size:,} unknowns and {members.size} patches")
-        solver = factorize(sub, method=method, tolerance=tolerance, n_rhs=members.size - 1)
-        rhs = np.zeros((keep.size, members.size - 1))
-        position = np.searchsorted(keep, members[1:])
-        rhs[position, np.arange(members.size - 1)] = 1.0
-        potential[np.ix_(keep, members[1:])] = solver.solve(rhs)
+        solver = factorize(sub, method=wanted, tolerance=tolerance, n_rhs=members.size - 1, ordering=ordering)
+        del sub
+        position = _positions(keep, members[1:])
+        sliced = keep.size == graph.n_nodes - 1 and ground == 0 and ordering is None
+        # Right-hand sides go in blocks of about RHS_BLOCK_VALUES numbers, so that the
+        # solver's temporary copies stay small next to the factor whatever k is.
+        width = max(1, RHS_BLOCK_VALUES // max(keep.size, 1))
+        for first in range(0, members.size - 1, width):
+            cols = np.arange(first, min(first + width, members.size - 1))
+            rhs = np.zeros((keep.size, cols.size))
+            rhs[position[cols], np.arange(cols.size)] = 1.0
+            solution = solver.solve(rhs)
+            if sliced:
+                potential[1:, members[1 + cols]] = solution
+            else:
+                potential[np.ix_(keep, members[1 + cols])] = solution
+            del rhs, solution
+        solver.release()
         solvers.append(solver)
     return PatchVoltages(graph, potential, comp_of_patch, solvers)
 
@@ -153,3 +190,12 @@ def resistance_table(voltages, resistance=None):
             "commute_time": np.where(apart, np.inf, 2.0 * vol_ab * r),
         })
     return table
+
+
+def _positions(keep, nodes):
+    """Where each of ``nodes`` sits in ``keep`` (which need not be sorted)."""
+    if keep.size < 2 or np.all(keep[1:] > keep[:-1]):
+        return np.searchsorted(keep, nodes)
+    where = np.full(int(keep.max()) + 1, -1, dtype=np.int64)
+    where[keep] = np.arange(keep.size)
+    return where[nodes]

@@ -1,0 +1,209 @@
+"""Solver selection, the direct engines, the nested-dissection ordering and the fast current sum."""
+
+import itertools
+
+import networkx as nx
+import numpy as np
+import pytest
+
+import landflow as lf
+from landflow import solve
+from landflow.analyses import current as current_module
+from landflow.errors import SolverError
+from landflow.graph import nested_dissection_order
+
+HAVE_PARDISO = solve.direct_engine() == "pardiso"
+ENGINES = ["superlu", "multigrid"] + (["pardiso"] if HAVE_PARDISO else [])
+
+
+def lognormal_graph(rows, cols, patches, seed=0):
+    rng = np.random.default_rng(seed)
+    labels = np.zeros((rows, cols), dtype=np.int64)
+    for p, (r, c) in enumerate(patches, start=1):
+        labels[r, c] = p
+    return lf.build_graph(lf.Grid.from_array(np.exp(rng.normal(size=(rows, cols)))), labels)
+
+
+class TestChooseMethod:
+    def test_direct_up_to_the_documented_size(self):
+        for n_rhs in (1, 9, 49, 1000):
+            assert solve.choose_method(1_000, n_rhs) == "direct"
+            assert solve.choose_method(solve.DIRECT_ALWAYS_UNKNOWNS, n_rhs) == "direct"
+        for n_rhs in (solve.DIRECT_MIN_RHS, 49):
+            assert solve.choose_method(solve.DIRECT_MAX_UNKNOWNS, n_rhs) == "direct"
+
+    def test_multigrid_for_few_right_hand_sides_in_the_middle_band(self):
+        for n_rhs in range(1, solve.DIRECT_MIN_RHS):
+            assert solve.choose_method(solve.DIRECT_ALWAYS_UNKNOWNS + 1, n_rhs) == "multigrid"
+            assert solve.choose_method(solve.DIRECT_MAX_UNKNOWNS, n_rhs) == "multigrid"
+
+    def test_multigrid_above_the_documented_size(self):
+        for n_rhs in (1, 9, 49, 1000):
+            assert solve.choose_method(solve.DIRECT_MAX_UNKNOWNS + 1, n_rhs) == "multigrid"
+            assert solve.choose_method(16_000_000, n_rhs) == "multigrid"
+
+    def test_auto_records_its_choice(self):
+        graph = lognormal_graph(20, 20, [(2, 2), (17, 15)])
+        record = lf.patch_voltages(graph, method="auto").solvers[0].record()
+        assert record["method"] == "direct"
+        assert record["engine"] == solve.direct_engine()
+
+
+class TestBackendsAgree:
+    def test_mid_sized_grid_to_1e6(self):
+        graph = lognormal_graph(150, 150, [(10, 10), (140, 20), (75, 75), (20, 130), (135, 140)], seed=3)
+        results = {m: lf.effective_resistance(lf.patch_voltages(graph, method=m)) for m in ENGINES}
+        reference = results["superlu"]
+        off = ~np.eye(5, dtype=bool)
+        for method, r in results.items():
+            np.testing.assert_allclose(r[off], reference[off], rtol=1e-6, err_msg=method)
+
+    @pytest.mark.parametrize("method", ENGINES + ["direct"])
+    def test_grid_corner_to_corner(self, method):
+        # 4 x 4 nodes of unit resistors, opposite corners: R = 13/7 (OEIS A357113, finite grid resistance).
+        # 4 neighbours, resistance 1 per unit length, 1 m cells: every edge is a unit resistor.
+        labels = np.zeros((4, 4), dtype=np.int64)
+        labels[0, 0], labels[3, 3] = 1, 2
+        graph = lf.build_graph(lf.Grid.from_array(np.ones((4, 4))), labels, neighbours=4)
+        r = lf.effective_resistance(lf.patch_voltages(graph, method=method))
+        assert r[0, 1] == pytest.approx(13 / 7, rel=1e-7)
+
+    @pytest.mark.skipif(not HAVE_PARDISO, reason="pypardiso (the 'fast' extra) is not installed")
+    def test_pardiso_equals_superlu_to_1e8(self):
+        graph = lognormal_graph(60, 70, [(5, 5), (50, 60), (30, 10), (8, 66)], seed=5)
+        a = lf.patch_voltages(graph, method="superlu")
+        b = lf.patch_voltages(graph, method="pardiso")
+        np.testing.assert_allclose(lf.effective_resistance(b), lf.effective_resistance(a), rtol=1e-8)
+        assert b.solvers[0].record()["engine"] == "pardiso"
+
+    def test_superlu_agrees_with_scipy_spsolve(self):
+        # scipy's general sparse solver on the grounded Laplacian, no landflow ordering involved.
+        import scipy.sparse.linalg as sla
+        graph = lognormal_graph(30, 25, [(3, 3), (25, 20), (12, 4)], seed=7)
+        lap = graph.laplacian()
+        sub = lap[1:, 1:].tocsc()
+        rhs = np.zeros((sub.shape[0], 2))
+        rhs[0, 0] = rhs[1, 1] = 1.0
+        expected = sla.spsolve(sub, rhs)
+        got = lf.patch_voltages(graph, method="superlu").potential[1:, 1:3]
+        np.testing.assert_allclose(got, expected, rtol=1e-10, atol=1e-12)
+
+
+class TestOrdering:
+    def test_is_a_permutation_with_patches_last(self):
+        graph = lognormal_graph(33, 47, [(1, 1), (30, 40), (16, 20)])
+        order = nested_dissection_order(graph)
+        assert np.array_equal(np.sort(order), np.arange(graph.n_nodes))
+        assert set(order[-3:]) == {0, 1, 2}
+
+    def test_ordering_does_not_change_solutions(self):
+        graph = lognormal_graph(40, 30, [(2, 2), (35, 25)])
+        sub = graph.laplacian()[1:, 1:]
+        rhs = np.random.default_rng(1).normal(size=(sub.shape[0], 3))
+        plain = solve.factorize(sub, method="superlu").solve(rhs)
+        order = nested_dissection_order(graph)
+        ordered = solve.factorize(sub, method="superlu", ordering=order[order != 0] - 1).solve(rhs)
+        np.testing.assert_allclose(ordered, plain, rtol=1e-10, atol=1e-12)
+
+    def test_nested_dissection_fills_less_than_minimum_degree(self):
+        graph = lognormal_graph(80, 80, [(2, 2), (70, 70)])
+        sub = graph.laplacian()[1:, 1:]
+        order = nested_dissection_order(graph)
+        nd = solve.factorize(sub, method="superlu", ordering=order[order != 0] - 1)._lu
+        mmd = solve.factorize(sub, method="superlu")._lu
+        assert nd.L.nnz + nd.U.nnz < mmd.L.nnz + mmd.U.nnz
+
+    def test_bad_ordering_is_refused(self):
+        graph = lognormal_graph(5, 5, [(0, 0), (4, 4)])
+        sub = graph.laplacian()[1:, 1:]
+        with pytest.raises(SolverError, match="ordering must be a permutation of 0..23"):
+            solve.factorize(sub, method="superlu", ordering=np.zeros(sub.shape[0], dtype=int))
+
+
+class TestErrors:
+    def test_unknown_method(self):
+        graph = lognormal_graph(5, 5, [(0, 0), (4, 4)])
+        with pytest.raises(SolverError, match="solver method must be one of auto, direct, multigrid"):
+            solve.factorize(graph.laplacian()[1:, 1:], method="cholesky")
+
+    def test_released_solver_refuses_to_solve(self):
+        graph = lognormal_graph(6, 6, [(0, 0), (5, 5)])
+        voltages = lf.patch_voltages(graph, method="superlu")
+        solver = voltages.solvers[0]
+        assert solver.record()["right_hand_sides"] == 1
+        with pytest.raises(SolverError, match="was released after its solves"):
+            solver.solve(np.ones(solver.matrix.shape[0]))
+
+    def test_pardiso_missing(self, monkeypatch):
+        monkeypatch.setattr(solve, "direct_engine", lambda: "superlu")     # as on a machine without it
+        graph = lognormal_graph(5, 5, [(0, 0), (4, 4)])
+        with pytest.raises(SolverError, match=r"needs the optional package pypardiso \(pip install 'landflow\[fast\]'"):
+            solve.factorize(graph.laplacian()[1:, 1:], method="pardiso")
+
+
+class TestCumulativeCurrentFastSum:
+    """The sorted sum over pairs must equal the pairwise sum it replaces."""
+
+    def _voltages(self):
+        graph = lognormal_graph(25, 30, [(2, 3), (20, 25), (12, 14), (3, 27), (22, 4)], seed=11)
+        return lf.patch_voltages(graph, method="superlu")
+
+    @pytest.mark.parametrize("strength", [None, [1.0, 2.0, 0.5, 3.0, 1.5]])
+    def test_equals_the_pairwise_sum(self, strength, monkeypatch):
+        voltages = self._voltages()
+        weights = lf.pair_weights(voltages, None if strength is None else np.array(strength))
+        fast = lf.cumulative_current(voltages, weights)
+        monkeypatch.setattr(current_module, "_product_groups", lambda *args: None)
+        slow = lf.cumulative_current(voltages, weights)
+        np.testing.assert_allclose(fast, slow, rtol=1e-12, atol=1e-14)
+
+    def test_general_weights_fall_back(self):
+        voltages = self._voltages()
+        weights = lf.pair_weights(voltages)
+        weights[0, 1] = weights[1, 0] = 7.0                     # not a product of strengths
+        assert current_module._product_groups(voltages.component_of_patch, weights) is None
+        expected = sum(weights[a, b] * lf.pair_current(voltages, a, b)
+                       for a, b in itertools.combinations(range(5), 2))
+        np.testing.assert_allclose(lf.cumulative_current(voltages, weights), expected, rtol=1e-10)
+
+    def test_against_networkx_current_flow(self):
+        # networkx.edge_current_flow_betweenness_centrality_subset (normalized=False) gives, per edge,
+        # (1/4) sum over ordered source/target pairs of |current| = (1/2) sum over unordered pairs;
+        # a node's throughput is half the sum over its edges plus 1/2 per pair at a source or sink
+        # (Brandes & Fleischer 2005, "Centrality measures based on current flow", STACS).
+        rows, cols = 6, 7
+        rng = np.random.default_rng(4)
+        resistance = np.exp(rng.normal(size=(rows, cols)))
+        sites = [(0, 0), (5, 6), (2, 4), (4, 1)]
+        labels = np.zeros((rows, cols), dtype=np.int64)
+        for p, (r, c) in enumerate(sites, start=1):
+            labels[r, c] = p
+        graph = lf.build_graph(lf.Grid.from_array(resistance), labels, neighbours=4)
+        flow = lf.cumulative_current(lf.patch_voltages(graph, method="superlu"))
+        g = nx.Graph()
+        for r in range(rows):
+            for c in range(cols):
+                for dr, dc in ((0, 1), (1, 0)):
+                    if r + dr < rows and c + dc < cols:
+                        cond = 1.0 / ((resistance[r, c] + resistance[r + dr, c + dc]) / 2)
+                        g.add_edge((r, c), (r + dr, c + dc), conductance=cond)
+        edge_flow = nx.edge_current_flow_betweenness_centrality_subset(
+            g, sources=sites, targets=sites, normalized=False, weight="conductance")
+        node_flow = {node: 0.0 for node in g}
+        for (x, y), value in edge_flow.items():
+            node_flow[x] += value
+            node_flow[y] += value
+        for site in sites:
+            node_flow[site] += 0.5 * (len(sites) - 1)
+        expected = np.array([node_flow[(r, c)] for r in range(rows) for c in range(cols)])
+        got = flow[graph.node_of_cell.ravel()]
+        np.testing.assert_allclose(got, expected, rtol=1e-8)
+
+
+def test_right_hand_sides_in_blocks_give_the_same_voltages(monkeypatch):
+    from landflow.analyses import resistance
+    graph = lognormal_graph(30, 30, [(1, 1), (28, 3), (15, 15), (4, 26), (27, 27)], seed=9)
+    whole = lf.patch_voltages(graph, method="superlu").potential
+    monkeypatch.setattr(resistance, "RHS_BLOCK_VALUES", 2 * graph.n_nodes)   # two columns per block
+    blocked = lf.patch_voltages(graph, method="superlu").potential
+    np.testing.assert_array_equal(blocked, whole)
