@@ -59,7 +59,7 @@ def landscape_mask(grid, kind="resistance"):
     )
     _reject(grid, mask & ~np.isfinite(values), f"are NaN or infinite inside the landscape; {fix_nan} or give them a value")
     if kind == "resistance":
-        _reject(grid, mask & (values <= 0), f"have resistance <= 0; resistance must be positive "
+        _reject(grid, mask & (values <= 0), "have resistance <= 0; resistance must be positive "
                 "(use nodata for cells outside the landscape, or a conductance raster where 0 means a barrier)")
         nodes = mask
     else:

@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import numpy as np
-import scipy.sparse as sp
 
 __all__ = ["edge_current", "pair_current", "cumulative_current", "pair_weights"]
 

@@ -10,7 +10,7 @@ from ..errors import ConfigError
 from ..analyses.suitability import TRANSFORMS
 from ..graph import EDGE_RULES, NEIGHBOURS
 from ..solve import METHODS
-from .schema import REQUIRED, Key, Section, close_match, validate_section
+from .schema import Key, Section, close_match, validate_section
 
 __all__ = ["Study", "load_study", "read_study_file", "study_from_dict", "SECTIONS"]
 

@@ -28,4 +28,4 @@ def test_every_key_with_its_default_and_unit_is_documented():
             if key.unit:
                 assert key.unit in text
     for name in ANALYSES:
-        assert f"```toml\n[landscape]" in text and f"\n[analyses.{name}]\n" in text
+        assert "```toml\n[landscape]" in text and f"\n[analyses.{name}]\n" in text

@@ -6,7 +6,6 @@ import pytest
 import rasterio
 
 from study_fixtures import study_text, write_raster, write_study
-from landflow.analyses.suitability import resistance_from_suitability
 from landflow.errors import ConfigError
 from landflow.study.config import load_study
 from landflow.study.run import run_study

@@ -77,6 +77,26 @@ def build_reference():
     return reference_graph
 
 
+def reference_laplacian(values, labels, *, kind="resistance", edge_rule="mean_resistance", neighbours=8,
+                        cell=(1.0, 1.0)):
+    """Dense Laplacian of :func:`reference_graph` (every cell valid), patch nodes first in id order.
+
+    Returns (laplacian, k) with k the number of patches.
+    """
+    labels = np.asarray(labels)
+    graph = reference_graph(values, np.ones(labels.shape, bool), kind=kind, neighbours=neighbours,
+                            edge_rule=edge_rule, cell=cell, patches=labels)
+    patches = [("patch", int(p)) for p in sorted(np.unique(labels[labels != 0]))]
+    order = patches + sorted(n for n in graph.nodes if n[0] == "cell")
+    laplacian = nx.laplacian_matrix(graph, nodelist=order, weight="conductance").toarray()
+    return laplacian, len(patches)
+
+
+@pytest.fixture(scope="session")
+def build_reference_laplacian():
+    return reference_laplacian
+
+
 def random_landscape(seed, rows=7, cols=8, n_patches=3, n_nodata=4):
     """Log-normal resistance, a few nodata cells and ``n_patches`` patches of 2-3 cells on valid cells."""
     rng = np.random.default_rng(seed)

@@ -1,7 +1,8 @@
 """Restoration gain against central finite differences, and Rayleigh's monotonicity law.
 
-The reference effective resistance here is built independently of landflow's graph code:
-loops over cells, patch cells merged by hand, a dense grounded solve.
+The reference effective resistance here is built independently of landflow's graph code
+(tests/reference/conftest.py: loops over cells, patch cells merged by relabelling) with a
+dense grounded solve.
 """
 
 import numpy as np
@@ -12,43 +13,10 @@ from hypothesis import strategies as st
 import landflow as lf
 from landflow.analyses.priority import objective_weights, restoration_gain
 
-OFFSETS = {4: [(0, 1), (1, 0)], 8: [(0, 1), (1, 0), (1, 1), (1, -1)]}
-
-
-def reference_resistance(values, labels, *, kind, rule, neighbours, cell=(1.0, 1.0)):
-    """k x k effective resistance from a hand-built Laplacian (dense, grounded at patch 0)."""
-    rows, cols = values.shape
-    patches = sorted(int(p) for p in np.unique(labels) if p != 0)
-    node, n = {}, len(patches)
-    for r in range(rows):
-        for c in range(cols):
-            if labels[r, c]:
-                node[r, c] = patches.index(labels[r, c])
-            else:
-                node[r, c], n = n, n + 1
-    lap = np.zeros((n, n))
-    width, height = cell
-    for r in range(rows):
-        for c in range(cols):
-            for dr, dc in OFFSETS[neighbours]:
-                rr, cc = r + dr, c + dc
-                if not (0 <= rr < rows and 0 <= cc < cols):
-                    continue
-                d = np.hypot(dr * height, dc * width)
-                x, y = values[r, c], values[rr, cc]
-                if kind == "conductance":
-                    x, y = 1.0 / x, 1.0 / y               # to resistance per unit length
-                if rule == "mean_resistance":
-                    g = 1.0 / (d * (x + y) / 2.0)
-                else:
-                    g = (1.0 / x + 1.0 / y) / (2.0 * d)
-                i, j = node[r, c], node[rr, cc]
-                if i != j:
-                    lap[i, i] += g
-                    lap[j, j] += g
-                    lap[i, j] -= g
-                    lap[j, i] -= g
-    k = len(patches)
+def reference_resistance(laplacian_of, values, labels, *, kind, rule, neighbours, cell=(1.0, 1.0)):
+    """k x k effective resistance from the independently built Laplacian (dense, grounded at patch 0)."""
+    lap, k = laplacian_of(values, labels, kind=kind, edge_rule=rule, neighbours=neighbours, cell=cell)
+    n = lap.shape[0]
     inv = np.zeros((n, n))
     inv[1:, 1:] = np.linalg.inv(lap[1:, 1:])
     d = np.diag(inv)[:k]
@@ -69,7 +37,7 @@ def small_landscape(seed, rows=5, cols=6):
 @pytest.mark.parametrize("kind", ["resistance", "conductance"])
 @pytest.mark.parametrize("rule", ["mean_resistance", "mean_conductance"])
 @pytest.mark.parametrize("objective", ["one_pair", "weighted_sum"])
-def test_gain_equals_central_finite_differences(rule, kind, neighbours, objective):
+def test_gain_equals_central_finite_differences(rule, kind, neighbours, objective, build_reference_laplacian):
     # dR_ab/dC_e = -(v_x - v_y)^2: Ghosh, Boyd & Saberi 2008, "Minimizing effective resistance of a
     # graph", SIAM Review 50:37 (formula from memory; confirmed here by central finite differences).
     values, labels = small_landscape(seed=7 + neighbours)
@@ -84,7 +52,8 @@ def test_gain_equals_central_finite_differences(rule, kind, neighbours, objectiv
     gain = restoration_gain(voltages, grid, weights, kind=kind)
 
     def objective_value(v):
-        r = reference_resistance(v, labels, kind=kind, rule=rule, neighbours=neighbours, cell=cell)
+        r = reference_resistance(build_reference_laplacian, v, labels, kind=kind, rule=rule,
+                                 neighbours=neighbours, cell=cell)
         return 0.5 * float((weights * r).sum())
 
     fd = np.zeros_like(values)

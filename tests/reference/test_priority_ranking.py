@@ -1,6 +1,6 @@
 """Corridor ranking: the Kron-reduced link network and the connectivity lost with each link.
 
-References are built independently of landflow's graph code (hand-built Laplacian, numpy Schur
+References are built independently of landflow's graph code (the cell-by-cell Laplacian of tests/reference/conftest.py, numpy Schur
 complement, networkx on the reduced network).
 """
 
@@ -11,36 +11,8 @@ import pytest
 import landflow as lf
 from landflow.analyses.priority import connectivity, corridor_ranking, link_conductance
 
-OFFSETS = [(0, 1), (1, 0), (1, 1), (1, -1)]
-
-
-def hand_laplacian(values, labels):
-    """8-neighbour Laplacian, mean_resistance rule, unit cells, patches merged; patch nodes first."""
-    rows, cols = values.shape
-    patches = sorted(int(p) for p in np.unique(labels) if p != 0)
-    node, n = {}, len(patches)
-    for r in range(rows):
-        for c in range(cols):
-            if labels[r, c]:
-                node[r, c] = patches.index(labels[r, c])
-            else:
-                node[r, c], n = n, n + 1
-    lap = np.zeros((n, n))
-    for r in range(rows):
-        for c in range(cols):
-            for dr, dc in OFFSETS:
-                rr, cc = r + dr, c + dc
-                if 0 <= rr < rows and 0 <= cc < cols and node[r, c] != node[rr, cc]:
-                    g = 2.0 / (np.hypot(dr, dc) * (values[r, c] + values[rr, cc]))
-                    i, j = node[r, c], node[rr, cc]
-                    lap[[i, j], [i, j]] += g
-                    lap[i, j] -= g
-                    lap[j, i] -= g
-    return lap, len(patches)
-
-
 @pytest.fixture(scope="module")
-def case():
+def case(build_reference_laplacian):
     rng = np.random.default_rng(11)
     values = np.exp(rng.normal(0, 1, size=(7, 9)))
     labels = np.zeros((7, 9), dtype=int)
@@ -50,7 +22,7 @@ def case():
     labels[0, 8] = 4
     labels[6, 7:9] = 5
     voltages = lf.patch_voltages(lf.build_graph(lf.Grid.from_array(values), labels))
-    lap, k = hand_laplacian(values, labels)
+    lap, k = build_reference_laplacian(values, labels)   # 8 neighbours, mean_resistance, unit cells
     # Kron reduction onto the patch nodes: the Schur complement S = L_PP - L_PF L_FF^-1 L_FP
     # (Dörfler & Bullo 2013, "Kron reduction of graphs with applications to electrical networks",
     # IEEE Trans. Circuits and Systems I 60:150).

@@ -43,7 +43,7 @@ def run(ctx, settings):
     ctx.write_raster("restoration_gain_relative.tif", relative, per_node=False,
                      units="objective units (resistance x map unit x pair weight)",
                      description="gain times the cell's own value: the first-order drop of the objective if "
-                                 f"the cell's value changed by 100% (f times this for a fraction f)")
+                                 "the cell's value changed by 100% (f times this for a fraction f)")
     ctx.quicklook("restoration_gain.png", gain, title="Restoration gain", units=units)
     flat = np.nan_to_num(gain, nan=-np.inf).reshape(-1)
     top = np.argsort(-flat, kind="stable")[: settings["top_cells"]]
