@@ -98,7 +98,7 @@ def test_write_is_atomic(tmp_path, tif, monkeypatch):
 
 def test_write_rejects_an_array_of_another_shape(tmp_path, tif):
     grid, _ = _grid(tif, (5, 6))
-    with pytest.raises(lf.InputError, match=r"array of shape \(6, 5\) does not fit the grid \(5, 6\)"):
+    with pytest.raises(lf.InputError, match=r"out\.tif: array of shape \(6, 5\) does not fit the grid \(5, 6\) of .*in\.tif"):
         write_geotiff(tmp_path / "out.tif", np.zeros((6, 5)), grid)
     assert not (tmp_path / "out.tif").exists()
 
