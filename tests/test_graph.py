@@ -89,3 +89,16 @@ def test_rotated_grid_is_refused():
     from affine import Affine
     with pytest.raises(lf.InputError, match="rotated or sheared.*warp it to a north-up grid"):
         lf.Grid(np.ones((2, 2)), np.ones((2, 2), bool), Affine(1, 0.5, 0, 0, -1, 0))
+
+
+@pytest.mark.parametrize("cell_size", [0.0, -10.0, (10.0, np.inf)])
+def test_cell_size_must_be_a_positive_length(cell_size):
+    with pytest.raises(lf.InputError, match=r"cell_size must be positive map lengths \(width, height\); got "):
+        lf.Grid.from_array(np.ones((2, 2)), cell_size=cell_size)
+
+
+def test_transform_with_zero_cell_size_is_refused():
+    from affine import Affine
+    with pytest.raises(lf.InputError, match=r"array: the transform gives cells of 0 x 1 map units; cell width and "
+                                            r"height must be finite and non-zero"):
+        lf.Grid(np.ones((2, 2)), np.ones((2, 2), bool), Affine(0, 0, 0, 0, -1, 0))
