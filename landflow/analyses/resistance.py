@@ -178,8 +178,8 @@ def resistance_table(voltages, resistance=None):
     a, b = np.triu_indices(k, 1)
     r = resistance[a, b]
     c_out = graph.total_conductance[:k]
-    i, j, c = graph.edges
-    volume = np.bincount(graph.components[i], weights=c, minlength=graph.components.max() + 1)
+    # W per component: every edge counted once is half the summed total conductance of its nodes
+    volume = 0.5 * np.bincount(graph.components, weights=graph.total_conductance)
     vol_ab = volume[voltages.component_of_patch[a]]
     apart = np.isinf(r)             # a walk never reaches the other patch, even from an isolated patch
     with np.errstate(divide="ignore", invalid="ignore"):
