@@ -256,8 +256,9 @@ def factorize(matrix, *, method="auto", tolerance=1e-8, n_rhs=1, ordering=None):
         ``auto`` follows :func:`choose_method`; ``direct`` uses
         :func:`direct_engine`; ``superlu`` and ``pardiso`` name a direct engine.
     tolerance : float
-        Relative residual target of the multigrid solves; direct solves are
-        checked against ``max(tolerance, 1e-6)``.
+        Relative residual target of the multigrid solves, which fail past
+        ``10 * tolerance`` (CG stops on a preconditioned norm); direct solves
+        fail past ``max(tolerance, 1e-6)``. Each right-hand side is checked.
     n_rhs : int
         How many right-hand sides are expected; informs ``auto``.
     ordering : ndarray of int, shape (n,), optional
