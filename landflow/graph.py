@@ -270,7 +270,6 @@ def _edges_to_csr(values, mask, node_of_cell, n_nodes, neighbours, cell_size, ed
     matrix = sp.coo_array((np.concatenate([c, c]), (np.concatenate([i, j]).astype(index),
                                                    np.concatenate([j, i]).astype(index))),
                           shape=(n_nodes, n_nodes)).tocsr()   # sums parallel edges
-    matrix.sum_duplicates()
     matrix.eliminate_zeros()
     return matrix
 
