@@ -94,7 +94,7 @@ def write_geotiff(path, array, grid, **profile):
         opts["tiled"] = False
         opts.pop("blockxsize"), opts.pop("blockysize")
     data = array.astype(opts["dtype"])
-    if np.issubdtype(data.dtype, np.floating):
+    if np.issubdtype(data.dtype, np.floating) and opts["nodata"] is not None:
         data = np.where(np.isnan(data), opts["nodata"], data)
     with atomic_path(path) as tmp:
         with rasterio.open(tmp, "w", **opts) as dst:
