@@ -51,6 +51,8 @@ def read_patch_points(path, grid, *, strength_column=None):
 
     Each point marks the cell it falls in. Several points may share an id
     (one patch of several cells); two different ids in one cell are an error.
+    With ``strength_column``, that column gives each patch's strength (a
+    finite number >= 0, the same on every point of one id).
     """
     try:
         table = pd.read_csv(path)
