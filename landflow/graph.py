@@ -193,7 +193,9 @@ def build_graph(grid, patches=None, *, kind="resistance", neighbours=8, edge_rul
         if patches.shape != grid.shape:
             raise InputError(f"patch labels have shape {patches.shape}, the grid {grid.shape}.")
         labels = patches.reshape(-1)[cells]
-        bad = ~np.isfinite(labels) | (labels < 0) | (labels != np.round(labels))
+        bad = labels < 0
+        if not np.issubdtype(labels.dtype, np.integer) and labels.dtype != bool:   # floats: whole and finite?
+            bad |= ~np.isfinite(labels) | (labels != np.round(labels))
         if bad.any():
             row, col = np.unravel_index(cells[np.argmax(bad)], grid.shape)
             raise InputError(f"{int(bad.sum())} patch label(s) in the landscape are not whole numbers >= 0; "

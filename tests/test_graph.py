@@ -73,8 +73,8 @@ def test_bad_options(surface):
         lf.build_graph(grid, edge_rule="max")
     with pytest.raises(lf.InputError, match=r"patch labels have shape \(2, 2\), the grid \(6, 7\)"):
         lf.build_graph(grid, np.zeros((2, 2), dtype=int))
-    for bad, shown in [(-1, "-1"), (1.5, "1.5"), (np.nan, "nan")]:
-        labels = np.zeros((6, 7))
+    for bad, shown, dtype in [(-1, "-1", int), (-1, "-1", float), (1.5, "1.5", float), (np.nan, "nan", float)]:
+        labels = np.zeros((6, 7), dtype=dtype)
         labels[2, 3] = bad
         with pytest.raises(lf.InputError, match=rf"1 patch label\(s\) in the landscape are not whole numbers >= 0; "
                                                 rf"first at row 2, col 3 \(x=3.5, y=-2.5\), label {shown}\. Label patches 1, 2"):
