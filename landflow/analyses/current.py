@@ -46,7 +46,11 @@ def pair_current(voltages, a, b):
 
 
 def pair_weights(voltages, strength=None):
-    """Weight of every pair: s_a * s_b (1 without strengths), 0 between components."""
+    """Weight of every pair: s_a * s_b (1 without strengths), 0 between components and on the diagonal.
+
+    ``strength`` holds one number per patch, in the order of ``graph.patch_ids``;
+    another length raises :class:`~landflow.errors.InputError`.
+    """
     k = voltages.graph.n_patches
     s = np.ones(k) if strength is None else np.asarray(strength, dtype=float)
     if s.shape != (k,):
