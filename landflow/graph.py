@@ -156,8 +156,8 @@ def build_graph(grid, patches=None, *, kind="resistance", neighbours=8, edge_rul
     grid : Grid
         Resistance (per unit length) or conductance surface.
     patches : ndarray of int, shape (rows, cols), optional
-        Patch labels, 0 = not a patch. Cells of one label need not touch.
-        Patch cells outside the landscape are ignored.
+        Patch labels, whole numbers >= 0, 0 = not a patch. Cells of one label
+        need not touch. Patch cells outside the landscape are ignored.
     kind : {"resistance", "conductance"}
     neighbours : {8, 4}
     edge_rule : {"mean_resistance", "mean_conductance"}
@@ -192,7 +192,16 @@ def build_graph(grid, patches=None, *, kind="resistance", neighbours=8, edge_rul
         patches = np.asarray(patches)
         if patches.shape != grid.shape:
             raise InputError(f"patch labels have shape {patches.shape}, the grid {grid.shape}.")
-        labels = patches.reshape(-1)[cells].astype(np.int64)
+        labels = patches.reshape(-1)[cells]
+        bad = labels < 0
+        if not np.issubdtype(labels.dtype, np.integer) and labels.dtype != bool:   # floats: whole and finite?
+            bad |= ~np.isfinite(labels) | (labels != np.round(labels))
+        if bad.any():
+            row, col = np.unravel_index(cells[np.argmax(bad)], grid.shape)
+            raise InputError(f"{int(bad.sum())} patch label(s) in the landscape are not whole numbers >= 0; "
+                             f"first at {grid.where(row, col)}, label {labels[np.argmax(bad)]:g}. "
+                             "Label patches 1, 2, ... and other cells 0.")
+        labels = labels.astype(np.int64)
     patch_ids, node = _number_nodes(labels)
     del labels
     n_nodes = int(node.max()) + 1 if node.size else 0
@@ -263,7 +272,6 @@ def _edges_to_csr(values, mask, node_of_cell, n_nodes, neighbours, cell_size, ed
     matrix = sp.coo_array((np.concatenate([c, c]), (np.concatenate([i, j]).astype(index),
                                                    np.concatenate([j, i]).astype(index))),
                           shape=(n_nodes, n_nodes)).tocsr()   # sums parallel edges
-    matrix.sum_duplicates()
     matrix.eliminate_zeros()
     return matrix
 

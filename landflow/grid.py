@@ -59,6 +59,11 @@ class Grid:
                 f"{self.source}: the grid is rotated or sheared (transform {tuple(t)[:6]}); "
                 "warp it to a north-up grid first (for example with gdalwarp)."
             )
+        if not (np.isfinite(t.a) and np.isfinite(t.e) and t.a != 0 and t.e != 0):
+            raise InputError(
+                f"{self.source}: the transform gives cells of {abs(t.a):g} x {abs(t.e):g} map units; "
+                "cell width and height must be finite and non-zero. Check the raster's geo-reference."
+            )
 
     @classmethod
     def from_array(cls, values, *, cell_size=1.0, mask=None, origin=(0.0, 0.0), crs=None):
@@ -82,6 +87,8 @@ class Grid:
         """
         values = np.asarray(values, dtype=np.float64)
         width, height = (cell_size, cell_size) if np.isscalar(cell_size) else cell_size
+        if not (np.isfinite(width) and np.isfinite(height) and width > 0 and height > 0):
+            raise InputError(f"cell_size must be positive map lengths (width, height); got {cell_size!r}.")
         if mask is None:
             mask = np.isfinite(values)
         transform = Affine(float(width), 0.0, origin[0], 0.0, -float(height), origin[1])

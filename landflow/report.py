@@ -15,9 +15,11 @@ def quicklook(path, array, *, patches=None, title="", units="", log_scale=True, 
     """Save a PNG map of ``array``: perceptually uniform colours, optional log stretch, patch outlines.
 
     NaN cells are left blank. With ``log_scale`` the colours span the 1st to
-    the 99.9th percentile of the positive values on a log scale. With
-    ``categorical`` (whole-number classes such as patch ids) every class gets
-    its own colour from a qualitative map and its own tick.
+    the 99.9th percentile of the positive values on a log scale, and cells
+    <= 0 are left blank too; without it they span the same percentiles of all
+    values. With ``categorical`` (whole-number classes such as patch ids)
+    every class gets a colour from a qualitative map (the 20 colours repeat
+    past 20 classes) and, up to 30 classes, its own tick.
     """
     # A Figure of its own, not pyplot's global state: safe when runs share a process (threaded workers).
     from matplotlib.colors import LogNorm, Normalize

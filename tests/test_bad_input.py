@@ -77,8 +77,9 @@ def test_raster_with_several_bands(tmp_path):
 def test_not_a_raster(tmp_path):
     path = tmp_path / "notes.tif"
     path.write_text("this is not a raster")
-    with pytest.raises(lf.InputError, match=r"cannot read the resistance raster '.*notes\.tif'"):
+    with pytest.raises(lf.InputError, match=r"cannot read the resistance raster '.*notes\.tif'") as err:
         read_grid(path, what="resistance raster")
+    assert ".." not in str(err.value)                       # GDAL's own full stop is not doubled
 
 
 # --- patches --------------------------------------------------------------------------------------
@@ -139,6 +140,25 @@ def test_negative_strength_raster(study, tif):
     tif("strength.tif", strength)
     with pytest.raises(lf.InputError, match=r"strength\.tif: strength must be >= 0; first negative at row 1, col 1"):
         lf.check_study(study(patches='raster = "patches.tif"\nstrength_raster = "strength.tif"'))
+
+
+def test_strength_raster_with_nan_inside_its_valid_area(study, tif):
+    strength = np.zeros((6, 8), dtype="float32")
+    strength[2, 3] = np.nan                                 # the raster declares -9999 as nodata, not NaN
+    tif("strength.tif", strength, nodata=NODATA)
+    with pytest.raises(lf.InputError, match=r"strength\.tif: strength must be >= 0; first not finite at row 2, col 3 "
+                                            r".*Set cells without a strength to 0 or to the raster's nodata value"):
+        lf.check_study(study(patches='raster = "patches.tif"\nstrength_raster = "strength.tif"'))
+
+
+def test_negative_strength_in_points(tmp_path, tif, centre):
+    grid = _resistance(tif)
+    path = tmp_path / "points.csv"
+    pd.DataFrame([[*centre(1, 1), 1, 2.0], [*centre(2, 2), 2, -1.5]],
+                 columns=["x", "y", "id", "size"]).to_csv(path, index=False)
+    with pytest.raises(lf.InputError, match=r"points\.csv, line 3: 'size' is -1\.5; a patch strength must be "
+                                            r"a finite number >= 0"):
+        read_patch_points(path, grid, strength_column="size")
 
 
 def _points(tmp_path, rows):

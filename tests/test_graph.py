@@ -73,6 +73,12 @@ def test_bad_options(surface):
         lf.build_graph(grid, edge_rule="max")
     with pytest.raises(lf.InputError, match=r"patch labels have shape \(2, 2\), the grid \(6, 7\)"):
         lf.build_graph(grid, np.zeros((2, 2), dtype=int))
+    for bad, shown, dtype in [(-1, "-1", int), (-1, "-1", float), (1.5, "1.5", float), (np.nan, "nan", float)]:
+        labels = np.zeros((6, 7), dtype=dtype)
+        labels[2, 3] = bad
+        with pytest.raises(lf.InputError, match=rf"1 patch label\(s\) in the landscape are not whole numbers >= 0; "
+                                                rf"first at row 2, col 3 \(x=3.5, y=-2.5\), label {shown}\. Label patches 1, 2"):
+            lf.build_graph(grid, labels)
     with pytest.raises(lf.InputError, match="kind must be 'resistance' or 'conductance', got 'friction'"):
         lf.build_graph(grid, kind="friction")
     with pytest.raises(lf.InputError, match=r"no cell is part of the landscape: every cell is nodata"):
@@ -83,3 +89,16 @@ def test_rotated_grid_is_refused():
     from affine import Affine
     with pytest.raises(lf.InputError, match="rotated or sheared.*warp it to a north-up grid"):
         lf.Grid(np.ones((2, 2)), np.ones((2, 2), bool), Affine(1, 0.5, 0, 0, -1, 0))
+
+
+@pytest.mark.parametrize("cell_size", [0.0, -10.0, (10.0, np.inf)])
+def test_cell_size_must_be_a_positive_length(cell_size):
+    with pytest.raises(lf.InputError, match=r"cell_size must be positive map lengths \(width, height\); got "):
+        lf.Grid.from_array(np.ones((2, 2)), cell_size=cell_size)
+
+
+def test_transform_with_zero_cell_size_is_refused():
+    from affine import Affine
+    with pytest.raises(lf.InputError, match=r"array: the transform gives cells of 0 x 1 map units; cell width and "
+                                            r"height must be finite and non-zero"):
+        lf.Grid(np.ones((2, 2)), np.ones((2, 2), bool), Affine(0, 0, 0, 0, -1, 0))

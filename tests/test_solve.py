@@ -91,6 +91,16 @@ class TestFailures:
         assert 0 < err.value.residual < 1e-6
         assert isinstance(err.value, RuntimeError)            # catchable as a builtin, too
 
+    def test_residual_is_checked_per_right_hand_side(self):
+        # a right-hand side solved badly is not averaged away by a much larger one solved exactly
+        from landflow.solve import _relative_residual
+        matrix = sp.csr_array(np.eye(2))
+        b = np.array([[1e6, 0.0], [0.0, 1.0]])
+        x = np.array([[1e6, 0.0], [0.0, 0.5]])
+        assert _relative_residual(matrix, x, b) == pytest.approx(0.5)
+        assert _relative_residual(matrix, x[:, 1], b[:, 1]) == pytest.approx(0.5)
+        assert _relative_residual(matrix, np.zeros((2, 1)), np.zeros((2, 1))) == 0.0
+
     def test_unknown_method(self, grounded):
         with pytest.raises(lf.SolverError, match="solver method must be one of auto, direct, multigrid, superlu, pardiso; got 'fast'"):
             factorize(grounded, method="fast")

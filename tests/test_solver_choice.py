@@ -118,6 +118,8 @@ class TestOrdering:
         sub = graph.laplacian()[1:, 1:]
         with pytest.raises(SolverError, match="ordering must be a permutation of 0..23"):
             solve.factorize(sub, method="superlu", ordering=np.zeros(sub.shape[0], dtype=int))
+        with pytest.raises(SolverError, match="ordering must be a permutation of 0..23"):
+            solve.factorize(sub, method="superlu", ordering=np.arange(sub.shape[0]) - 1)
 
 
 class TestErrors:

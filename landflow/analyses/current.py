@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import numpy as np
 
+from ..errors import InputError
+
 __all__ = ["edge_current", "pair_current", "cumulative_current", "pair_weights"]
 
 #: Sets the edges handled at once when summing over pairs: EDGE_BLOCK * 16 / k
@@ -44,9 +46,16 @@ def pair_current(voltages, a, b):
 
 
 def pair_weights(voltages, strength=None):
-    """Weight of every pair: s_a * s_b (1 without strengths), 0 between components."""
+    """Weight of every pair: s_a * s_b (1 without strengths), 0 between components and on the diagonal.
+
+    ``strength`` holds one number per patch, in the order of ``graph.patch_ids``;
+    another length raises :class:`~landflow.errors.InputError`.
+    """
     k = voltages.graph.n_patches
     s = np.ones(k) if strength is None else np.asarray(strength, dtype=float)
+    if s.shape != (k,):
+        raise InputError(f"strength must hold one number per patch ({k}, in the order of graph.patch_ids); "
+                         f"got shape {s.shape}.")
     w = np.outer(s, s)
     w[voltages.component_of_patch[:, None] != voltages.component_of_patch[None, :]] = 0.0
     np.fill_diagonal(w, 0.0)
@@ -78,7 +87,9 @@ def cumulative_current(voltages, weights=None, *, progress=None):
     ----------
     voltages : PatchVoltages
     weights : ndarray, shape (k, k), optional
-        Symmetric pair weights; default :func:`pair_weights` without strengths.
+        Pair weights; default :func:`pair_weights` without strengths. Only
+        the pairs a < b are read (``weights[a, b]``), and pairs in different
+        connected components carry no current whatever their weight.
     progress : callable(done, total), optional
 
     Notes
@@ -88,7 +99,16 @@ def cumulative_current(voltages, weights=None, *, progress=None):
     """
     graph = voltages.graph
     k = graph.n_patches
-    w = pair_weights(voltages) if weights is None else np.asarray(weights, dtype=float)
+    if weights is None:
+        w = pair_weights(voltages)
+    else:
+        w = np.asarray(weights, dtype=float)
+        if w.shape != (k, k):
+            raise InputError(f"weights must be a {k} x {k} matrix, one row and column per patch; "
+                             f"got shape {w.shape}. Make them with pair_weights(voltages, strength).")
+        w = np.triu(w, 1)                       # the pairs a < b, mirrored: the sum's own terms
+        w = w + w.T
+        w[voltages.component_of_patch[:, None] != voltages.component_of_patch[None, :]] = 0.0
     i, j, c = graph.edges
     u = voltages.potential
     edge_sum = np.empty(c.size)

@@ -112,14 +112,14 @@ def patch_voltages(graph, *, method="auto", tolerance=1e-8, progress=None):
             keep = np.flatnonzero(comp == c)
             keep = keep[keep != ground]
             ordering = None
-        sub = laplacian[1:, 1:] if keep.size == graph.n_nodes - 1 and ordering is None and ground == 0 \
-            else laplacian[keep][:, keep]
+        # the whole graph grounded at node 0, in natural order: a slice, without index arrays
+        sliced = keep.size == graph.n_nodes - 1 and ground == 0 and ordering is None
+        sub = laplacian[1:, 1:] if sliced else laplacian[keep][:, keep]
         if progress:
             progress(f"solving component with {keep.size:,} unknowns and {members.size} patches")
         solver = factorize(sub, method=wanted, tolerance=tolerance, n_rhs=members.size - 1, ordering=ordering)
         del sub
         position = _positions(keep, members[1:])
-        sliced = keep.size == graph.n_nodes - 1 and ground == 0 and ordering is None
         # Right-hand sides go in blocks of about RHS_BLOCK_VALUES numbers, so that the
         # solver's temporary copies stay small next to the factor whatever k is.
         width = max(1, RHS_BLOCK_VALUES // max(keep.size, 1))
@@ -178,8 +178,8 @@ def resistance_table(voltages, resistance=None):
     a, b = np.triu_indices(k, 1)
     r = resistance[a, b]
     c_out = graph.total_conductance[:k]
-    i, j, c = graph.edges
-    volume = np.bincount(graph.components[i], weights=c, minlength=graph.components.max() + 1)
+    # W per component: every edge counted once is half the summed total conductance of its nodes
+    volume = 0.5 * np.bincount(graph.components, weights=graph.total_conductance)
     vol_ab = volume[voltages.component_of_patch[a]]
     apart = np.isinf(r)             # a walk never reaches the other patch, even from an isolated patch
     with np.errstate(divide="ignore", invalid="ignore"):

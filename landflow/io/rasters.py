@@ -52,7 +52,8 @@ def read_grid(path, *, what="raster", allow_geographic=False):
             values = src.read(1, masked=False).astype(np.float64)
             nodata, transform, crs = src.nodata, src.transform, src.crs
     except RasterioIOError as exc:
-        raise InputError(f"cannot read the {what} '{path}': {exc}. Check the path "
+        reason = str(exc).rstrip(". ")                  # GDAL's messages often end with a full stop
+        raise InputError(f"cannot read the {what} '{path}': {reason}. Check the path "
                          "(relative paths in a study are relative to the study file).") from None
     if crs is not None and crs.is_geographic and not allow_geographic:
         raise InputError(f"{path}: the {what} is in a geographic CRS ({crs.to_string()}) whose units "
@@ -77,21 +78,23 @@ def read_aligned(path, grid, *, what="raster"):
 
 
 def write_geotiff(path, array, grid, **profile):
-    """Write ``array`` on ``grid`` as a tiled, compressed float32 GeoTIFF.
+    """Write ``array`` on ``grid`` as a compressed float32 GeoTIFF (:data:`GEOTIFF_PROFILE`).
 
-    NaN cells are written as :data:`NODATA`. The file appears under its final
-    name only once it is complete.
+    The file is tiled in 256 x 256 blocks when the grid holds at least one
+    block, striped otherwise. NaN cells are written as :data:`NODATA`.
+    ``profile`` overlays the creation options. The file appears under its
+    final name only once it is complete.
     """
     array = np.asarray(array)
     if array.shape != grid.shape:
-        raise InputError(f"array of shape {array.shape} does not fit the grid {grid.shape}.")
+        raise InputError(f"{path}: array of shape {array.shape} does not fit the grid {grid.shape} of {grid.source}.")
     opts = {**GEOTIFF_PROFILE, "height": grid.shape[0], "width": grid.shape[1],
             "transform": grid.transform, "crs": grid.crs, **profile}
     if grid.shape[0] < opts["blockysize"] or grid.shape[1] < opts["blockxsize"]:
         opts["tiled"] = False
         opts.pop("blockxsize"), opts.pop("blockysize")
     data = array.astype(opts["dtype"])
-    if np.issubdtype(data.dtype, np.floating):
+    if np.issubdtype(data.dtype, np.floating) and opts["nodata"] is not None:
         data = np.where(np.isnan(data), opts["nodata"], data)
     with atomic_path(path) as tmp:
         with rasterio.open(tmp, "w", **opts) as dst:

@@ -51,6 +51,8 @@ def read_patch_points(path, grid, *, strength_column=None):
 
     Each point marks the cell it falls in. Several points may share an id
     (one patch of several cells); two different ids in one cell are an error.
+    With ``strength_column``, that column gives each patch's strength (a
+    finite number >= 0, the same on every point of one id).
     """
     try:
         table = pd.read_csv(path)
@@ -71,9 +73,17 @@ def read_patch_points(path, grid, *, strength_column=None):
             raise InputError(f"{path}, line {line}: column {col!r} holds {table[col].iloc[line - 2]!r}, not a number.")
         table[col] = values
     ids = table["id"].to_numpy()
-    if ((ids != np.round(ids)) | (ids <= 0)).any():
-        line = int(((ids != np.round(ids)) | (ids <= 0)).argmax()) + 2
+    bad = (ids != np.round(ids)) | (ids <= 0)
+    if bad.any():
+        line = int(bad.argmax()) + 2
         raise InputError(f"{path}, line {line}: id {ids[line - 2]:g} is not a whole number > 0.")
+    if strength_column:
+        strength = table[strength_column].to_numpy()
+        bad = ~np.isfinite(strength) | (strength < 0)
+        if bad.any():
+            line = int(bad.argmax()) + 2
+            raise InputError(f"{path}, line {line}: {strength_column!r} is {strength[line - 2]:g}; "
+                             "a patch strength must be a finite number >= 0.")
     rows, cols = grid.rowcol(table["x"].to_numpy(), table["y"].to_numpy())
     inside = (rows >= 0) & (rows < grid.shape[0]) & (cols >= 0) & (cols < grid.shape[1])
     if not inside.all():
@@ -109,9 +119,12 @@ def patch_strength_from_raster(path, grid, patches):
     """Strength of each patch as the sum of a raster's values over its cells."""
     src = read_aligned(path, grid, what="patch strength raster")
     values = np.where(src.mask, src.values, 0.0)
-    if (values < 0).any():
-        rows, cols = np.nonzero(values < 0)
-        raise InputError(f"{path}: strength must be >= 0; first negative at {grid.where(rows[0], cols[0])}.")
+    bad = ~np.isfinite(values) | (values < 0)
+    if bad.any():
+        rows, cols = np.nonzero(bad)
+        first = "negative" if values[rows[0], cols[0]] < 0 else "not finite"
+        raise InputError(f"{path}: strength must be >= 0; first {first} at {grid.where(rows[0], cols[0])}. "
+                         "Set cells without a strength to 0 or to the raster's nodata value.")
     ids = patches.ids
     sums = np.bincount(np.searchsorted(ids, patches.labels[patches.labels > 0]),
                        weights=values[patches.labels > 0], minlength=ids.size)

@@ -96,9 +96,19 @@ def test_write_is_atomic(tmp_path, tif, monkeypatch):
     assert sorted(p.name for p in tmp_path.iterdir()) == ["in.tif", "out.tif"]
 
 
+def test_profile_overlay_without_nodata_keeps_nan(tmp_path, tif):
+    grid, _ = _grid(tif, (5, 6))
+    out = np.where(grid.mask, 1.0, np.nan)
+    write_geotiff(tmp_path / "out.tif", out, grid, nodata=None, compress="lzw")
+    with rasterio.open(tmp_path / "out.tif") as src:
+        assert src.nodata is None and src.profile["compress"] == "lzw"
+        data = src.read(1)
+    assert np.isnan(data[0, 0]) and (data[grid.mask] == 1.0).all()
+
+
 def test_write_rejects_an_array_of_another_shape(tmp_path, tif):
     grid, _ = _grid(tif, (5, 6))
-    with pytest.raises(lf.InputError, match=r"array of shape \(6, 5\) does not fit the grid \(5, 6\)"):
+    with pytest.raises(lf.InputError, match=r"out\.tif: array of shape \(6, 5\) does not fit the grid \(5, 6\) of .*in\.tif"):
         write_geotiff(tmp_path / "out.tif", np.zeros((6, 5)), grid)
     assert not (tmp_path / "out.tif").exists()
 

@@ -134,3 +134,29 @@ def test_cumulative_current_is_the_weighted_sum_of_pair_currents(with_weights, l
     np.testing.assert_allclose(lf.cumulative_current(voltages, weights), expected, rtol=1e-10, atol=1e-12)
     monkeypatch.undo()
     np.testing.assert_allclose(lf.cumulative_current(voltages, weights), expected, rtol=1e-10, atol=1e-12)
+
+
+def test_cumulative_current_reads_only_the_pairs_it_sums(landscape):
+    # the sum runs over pairs a < b of one piece: a diagonal, a lower triangle or a weight
+    # across pieces (where no current flows) must not change it
+    values, _, _ = landscape(13, rows=8, cols=10, n_patches=0, n_nodata=0)
+    values[:, 5] = np.nan                               # two pieces
+    patches = np.zeros(values.shape, dtype=int)
+    patches[1, 1], patches[6, 2], patches[2, 8], patches[5, 7:9], patches[7, 9] = 1, 2, 3, 4, 5
+    graph, voltages = _solve(values, patches, neighbours=8)
+    k = graph.n_patches
+    upper = np.triu(np.random.default_rng(3).uniform(0.5, 3.0, size=(k, k)), 1)
+    connected = np.array([[voltages.connected(a, b) for b in range(k)] for a in range(k)])
+    assert not connected.all()
+    expected = np.zeros(graph.n_nodes)
+    for a, b in itertools.combinations(range(k), 2):
+        if connected[a, b]:
+            expected += upper[a, b] * lf.pair_current(voltages, a, b)
+    noisy = upper + np.diag(np.full(k, 7.0)) + np.tril(np.full((k, k), 5.0), -1)
+    np.testing.assert_allclose(lf.cumulative_current(voltages, noisy), expected, rtol=1e-10, atol=1e-12)
+    with pytest.raises(lf.InputError, match=rf"weights must be a {k} x {k} matrix, one row and column per patch; "
+                                            r"got shape \(2, 2\)\. Make them with pair_weights"):
+        lf.cumulative_current(voltages, np.ones((2, 2)))
+    with pytest.raises(lf.InputError, match=rf"strength must hold one number per patch \({k}, in the order of "
+                                            r"graph\.patch_ids\); got shape \(3,\)"):
+        lf.pair_weights(voltages, [1.0, 2.0, 3.0])
