@@ -465,7 +465,11 @@ def hitting_probability(walk, a, b=None):
         nodes = [ia, ib]
         what = f"patch {b}"
     system = _with_absorbing(walk, nodes)
-    h = system._absorption[:, int(np.searchsorted(system.absorbing, ia))].copy()
+    if "_absorption" in system.__dict__:      # every absorption column already solved (the shared walk)
+        h = system._absorption[:, int(np.searchsorted(system.absorbing, ia))].copy()
+    else:                                     # one right-hand side, not one per absorbing patch plus death
+        h = system.solve(graph.conductance[:, [ia]].toarray().ravel())
+        h[ia] = 1.0
     # reachability of A without entering another absorbing patch
     keep = ~system.is_absorbing
     keep[ia] = True
