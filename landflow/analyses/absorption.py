@@ -628,7 +628,7 @@ def expected_steps(walk, crossing_time=None):
     return t
 
 
-def release_expected_steps(walk, crossing_time=None):
+def release_expected_steps(walk, crossing_time=None, *, steps=None, time=None):
     """Expected steps (and time) from release at each patch until arrival at another patch or death.
 
     With t the per-node expected steps and mu_a the release distribution, one
@@ -639,6 +639,16 @@ def release_expected_steps(walk, crossing_time=None):
 
     and the expected time (no time is spent inside patches) is (mu_a . t_tau) / e_a.
 
+    Parameters
+    ----------
+    walk : AbsorbingWalk
+        Every patch absorbing.
+    crossing_time : ndarray, shape (n_nodes,), optional
+        Per-node crossing time (:func:`node_crossing_time`).
+    steps, time : ndarray, shape (n_nodes,), optional
+        ``expected_steps(walk)`` and ``expected_steps(walk, crossing_time)``
+        when already computed; each saves one solve.
+
     Returns
     -------
     pandas.DataFrame
@@ -647,8 +657,10 @@ def release_expected_steps(walk, crossing_time=None):
     """
     _check_all_absorbing(walk)
     graph = walk.graph
-    t = expected_steps(walk)
-    tt = expected_steps(walk, crossing_time) if crossing_time is not None else None
+    t = expected_steps(walk) if steps is None else steps
+    tt = None
+    if crossing_time is not None:
+        tt = expected_steps(walk, crossing_time) if time is None else time
     out = {"release_patch": [int(p) for p in graph.patch_ids], "expected_steps": []}
     if tt is not None:
         out["expected_time"] = []
