@@ -128,3 +128,14 @@ def test_all_steps_run_on_a_split_landscape(folder):
     assert np.isinf(ranking["effective_resistance"][1:]).all()
     change = pd.read_csv(folder / "out" / "scenario_change.csv")
     assert (change["resistance_change"].fillna(0) == 0).all()
+
+
+def test_gain_cells_list_only_landscape_cells(folder):
+    # 48 cells, 6 of them nodata: asking for more cells than the landscape holds lists the 42 landscape cells
+    s = study(folder, {"restoration_gain": {"top_cells": 100}})
+    run_study(s)
+    import pandas as pd
+    cells = pd.read_csv(folder / "out" / "restoration_gain_cells.csv")
+    assert len(cells) == 42
+    assert (cells["col"] != 4).all() and np.isfinite(cells["gain"]).all()
+    assert (np.diff(cells["gain"]) <= 0).all()

@@ -45,8 +45,9 @@ def run(ctx, settings):
                      description="gain times the cell's own value: the first-order drop of the objective if "
                                  "the cell's value changed by 100% (f times this for a fraction f)")
     ctx.quicklook("restoration_gain.png", gain, title="Restoration gain", units=units)
-    flat = np.nan_to_num(gain, nan=-np.inf).reshape(-1)
-    top = np.argsort(-flat, kind="stable")[: settings["top_cells"]]
+    flat = gain.reshape(-1)
+    landscape = np.flatnonzero(np.isfinite(flat))          # cells outside the landscape have no gain to list
+    top = landscape[np.argsort(-flat[landscape], kind="stable")[: settings["top_cells"]]]
     rows, cols = np.unravel_index(top, gain.shape)
     x, y = ctx.grid.xy(rows, cols)
     patch = ctx.patches.labels[rows, cols]
