@@ -128,6 +128,8 @@ def test_all_steps_run_on_a_split_landscape(folder):
     assert np.isinf(ranking["effective_resistance"][1:]).all()
     change = pd.read_csv(folder / "out" / "scenario_change.csv")
     assert (change["resistance_change"].fillna(0) == 0).all()
+    # one solve of the piece holding patches 1 and 2, shared by the steps, and one more on the changed raster
+    assert len(manifest["solvers"]) == 2
 
 
 def test_gain_cells_list_only_landscape_cells(folder):
