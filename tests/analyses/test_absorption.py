@@ -287,3 +287,19 @@ def test_study_reports_unreachable_cells(study_dir):
     with rasterio.open(study_dir / "out" / "hitting_probability_1_before_2.tif") as src:
         h = src.read(1)
     assert (h[:, 5:] == 0).all() and (h[:, :4] > 0.99).all()
+
+
+@pytest.mark.parametrize("table, key", [
+    ("[analyses.absorption_probability]\npatches = [1, 8]", "absorption_probability.patches"),
+    ("[analyses.expected_visits]\nrelease_patches = [8]", "expected_visits.release_patches"),
+    ("[analyses.walk_simulation]\nrelease_patches = [8]", "walk_simulation.release_patches"),
+    ("[analyses.hitting_probability]\nbefore_any_other = [8]", "hitting_probability.before_any_other"),
+])
+def test_study_check_names_unknown_patch_ids_before_solving(study_dir, table, key):
+    # the check (no solve) already refuses an id that is no patch, naming the key and the known ids
+    study = study_dir / "study.toml"
+    study.write_text(STUDY.format(extra="").split("[analyses.hitting_probability]")[0] + table + "\n")
+    with pytest.raises(InputError, match=rf"'analyses\.{key}' names unknown patch id\(s\) 8; the patches are "
+                                         r"1, 2, 3\. Use ids of the patch raster"):
+        lf.check_study(study)
+

@@ -27,8 +27,12 @@ SETTINGS = Section({
    "number of steps beside the exact expected steps (walk_simulation_steps.csv). Uses [mortality] when given.")
 
 
+def check(ctx, settings):
+    return patch_ids_or_all(ctx, settings["release_patches"], f"analyses.{NAME}.release_patches")
+
+
 def run(ctx, settings):
-    wanted = patch_ids_or_all(ctx, settings["release_patches"], f"analyses.{NAME}.release_patches")
+    wanted = check(ctx, settings)
     walk = ctx.absorbing_walk
     with ctx.forward_warnings():
         exact = arrival_table(walk)
