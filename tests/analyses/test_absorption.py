@@ -303,3 +303,15 @@ def test_study_check_names_unknown_patch_ids_before_solving(study_dir, table, ke
                                          r"1, 2, 3\. Use ids of the patch raster"):
         lf.check_study(study)
 
+
+def test_simulation_inputs_are_checked_like_the_walk():
+    graph = strip([1.0] * 4, [1, 0, 0, 2])
+    with pytest.raises(InputError, match=r"mortality: 1 landscape cell\(s\) have a per-step death probability "
+                                         r"outside \[0, 1\) \(first: 1 at row 0, col 2\)"):
+        simulate_walks(graph, start_cell=(0, 1), mortality=np.array([[0.0, 0.1, 1.0, 0.0]]))
+    with pytest.raises(InputError, match=r"has shape \(1, 3\) but the landscape has \(1, 4\)"):
+        simulate_walks(graph, start_cell=(0, 1), crossing_time=np.ones((1, 3)))
+    with pytest.raises(InputError, match=r"crossing time that is negative or missing \(first: -1 at row 0, col 1\)"):
+        simulate_walks(graph, start_cell=(0, 1), crossing_time=np.array([[0.0, -1.0, 1.0, 0.0]]))
+    with pytest.raises(InputError, match=r"start cell \(row 0, col 7\) is not a landscape cell .* Choose a cell"):
+        simulate_walks(graph, start_cell=(0, 7))
