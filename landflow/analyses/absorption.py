@@ -699,8 +699,16 @@ def expected_visits(walk, *, release_patch=None, source=None):
     -------
     ndarray, shape (n_nodes,)
         Expected visits (per walker released, or per unit of source). Other
-        patches, where walkers stop, get 0; stranded nodes ``inf`` if any
-        walker can reach them (never, for a connected start) and 0 otherwise.
+        patches, where walkers stop, get 0; so do stranded nodes, which no
+        walker from a node where walks end can reach.
+
+    Raises
+    ------
+    InputError
+        Neither or both of ``release_patch`` and ``source``; an unknown patch
+        id; a source of the wrong length; walkers released where no walk
+        ends (a patch that reaches no other patch without mortality, or a
+        stranded node), since their visits would be infinite.
     """
     _check_all_absorbing(walk)
     graph = walk.graph

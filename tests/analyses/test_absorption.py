@@ -315,3 +315,24 @@ def test_simulation_inputs_are_checked_like_the_walk():
         simulate_walks(graph, start_cell=(0, 1), crossing_time=np.array([[0.0, -1.0, 1.0, 0.0]]))
     with pytest.raises(InputError, match=r"start cell \(row 0, col 7\) is not a landscape cell .* Choose a cell"):
         simulate_walks(graph, start_cell=(0, 7))
+
+
+def test_expected_visits_refuses_walks_that_never_end():
+    # pieces: [patch 1, cell] | [patch 2, cell] | [cell, cell], split by nodata cells
+    graph = strip([1.0, 1.0, np.nan, 1.0, 1.0, np.nan, 1.0, 1.0], [1, 0, 0, 2, 0, 0, 0, 0])
+    with pytest.warns(StrandedWalkWarning):
+        walk = absorbing_walk(graph)
+    with pytest.raises(InputError, match=r"walkers released from patch 1 can reach no other patch and cannot die"):
+        expected_visits(walk, release_patch=1)
+    source = np.zeros(graph.n_nodes)
+    source[graph.node_of_cell[0, 7]] = 1.0
+    with pytest.raises(InputError, match=r"1 released node\(s\) lie where no walk ends"):
+        expected_visits(walk, source=source)
+    with pytest.raises(InputError, match=r"source must give one value per node \(6\); got shape \(3,\)"):
+        expected_visits(walk, source=np.ones(3))
+    with pytest.raises(InputError, match=r"needs exactly one of release_patch \(a patch id\) or source"):
+        expected_visits(walk)
+    with pytest.warns(StrandedWalkWarning):
+        only_2 = absorbing_walk(graph, absorbing=[2])
+    with pytest.raises(InputError, match=r"needs every patch absorbing; build the walk with absorbing=None"):
+        expected_visits(only_2, release_patch=2)
