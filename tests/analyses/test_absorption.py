@@ -336,3 +336,18 @@ def test_expected_visits_refuses_walks_that_never_end():
         only_2 = absorbing_walk(graph, absorbing=[2])
     with pytest.raises(InputError, match=r"needs every patch absorbing; build the walk with absorbing=None"):
         expected_visits(only_2, release_patch=2)
+
+
+def test_walk_simulation_table_with_unfinished_walkers(study_dir):
+    # max_steps = 3 leaves most walkers unfinished; every column of the arrival table is then out of all walkers
+    study = study_dir / "study.toml"
+    text = STUDY.format(extra="").split("[analyses.hitting_probability]")[0]
+    study.write_text(text + "[analyses.walk_simulation]\nwalkers = 400\nmax_steps = 3\nrelease_patches = [1]\n")
+    manifest = lf.run_study(study)
+    assert any("were still walking after 3 steps" in w for w in manifest["warnings"])
+    table = pd.read_csv(study_dir / "out" / "walk_simulation_arrival.csv")
+    p, sim = table["exact_probability"], table["simulated_probability"]
+    np.testing.assert_allclose(table["standard_error"], np.sqrt(sim * (1 - sim) / 400))
+    arrived = table["outcome"] == "arrival"
+    np.testing.assert_allclose(table["difference_in_standard_errors"][arrived],
+                               ((sim - p) / np.sqrt(p * (1 - p) / 400))[arrived])

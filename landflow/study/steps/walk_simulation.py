@@ -64,12 +64,12 @@ def run(ctx, settings):
     if not arrival:
         return
     arrival = pd.concat(arrival, ignore_index=True)
-    # judged against the binomial standard error of the exact probability, defined even when no walker arrived
+    # judged against the binomial standard error of the exact probability, defined even when no walker arrived;
+    # the simulated shares (and their standard errors) are out of every walker released, unfinished included
     p = arrival["exact_probability"].to_numpy(dtype=float)
-    n = arrival["release_patch"].map({row["release_patch"]: row["walkers"] - row["unfinished"] for row in steps})
     with np.errstate(divide="ignore", invalid="ignore"):
         arrival["difference_in_standard_errors"] = (
-            (arrival["simulated_probability"] - p) / np.sqrt(p * (1 - p) / n.to_numpy(dtype=float)))
+            (arrival["simulated_probability"] - p) / np.sqrt(p * (1 - p) / settings["walkers"]))
     ctx.write_table("walk_simulation_arrival.csv", arrival, units="probability (0 to 1); standard errors",
                     description="simulated share of walkers from each release patch arriving at each other patch "
                                 "or dying, its standard error, the exact probability and their difference in "
