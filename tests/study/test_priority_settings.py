@@ -74,6 +74,9 @@ def test_objective_pair_in_separate_pieces(folder):
     s = study(folder, {"restoration_gain": {"pairs": [[1, 3]]}})
     with pytest.raises(ConfigError, match=r"'analyses.restoration_gain.pairs': patches 1 and 3 lie in separate "
                                           "pieces of the landscape"):
+        check_study(s)                         # known from the graph alone, before any solve
+    with pytest.raises(ConfigError, match=r"'analyses.restoration_gain.pairs': patches 1 and 3 lie in separate "
+                                          "pieces of the landscape"):
         run_study(s)
     assert not (folder / "out").exists()
 
