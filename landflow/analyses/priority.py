@@ -476,11 +476,17 @@ def scenario_change(before, after, weights_before, weights_after):
         The two graphs do not have the same patches.
     """
     g0, g1 = before.graph, after.graph
-    if g0.shape != g1.shape or not np.array_equal(g0.patch_ids, g1.patch_ids):
+    if g0.shape != g1.shape:
+        raise InputError(f"the changed landscape has {g1.shape[0]} x {g1.shape[1]} cells but the present one "
+                         f"{g0.shape[0]} x {g0.shape[1]}; both must lie on the same grid. Resample the changed "
+                         "raster onto the present one's grid.")
+    if not np.array_equal(g0.patch_ids, g1.patch_ids):
         lost = np.setdiff1d(g0.patch_ids, g1.patch_ids)
-        raise InputError("the changed landscape must keep every patch on the same grid; "
-                         f"patch(es) {', '.join(map(str, lost)) or '(grid differs)'} are lost. "
-                         "Keep patch cells inside the changed landscape.")
+        gained = np.setdiff1d(g1.patch_ids, g0.patch_ids)
+        which = (f"patch(es) {', '.join(map(str, lost))} are lost" if lost.size
+                 else f"patch(es) {', '.join(map(str, gained))} are new")
+        raise InputError(f"the changed landscape must keep every patch on the same grid; {which}. "
+                         "Keep the same patches, with their cells inside the changed landscape.")
     r0, r1 = effective_resistance(before), effective_resistance(after)
     k = g0.n_patches
     a, b = np.triu_indices(k, 1)
