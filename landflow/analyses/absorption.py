@@ -465,7 +465,11 @@ def hitting_probability(walk, a, b=None):
         nodes = [ia, ib]
         what = f"patch {b}"
     system = _with_absorbing(walk, nodes)
-    h = system._absorption[:, int(np.searchsorted(system.absorbing, ia))].copy()
+    if "_absorption" in system.__dict__:      # every absorption column already solved (the shared walk)
+        h = system._absorption[:, int(np.searchsorted(system.absorbing, ia))].copy()
+    else:                                     # one right-hand side, not one per absorbing patch plus death
+        h = system.solve(graph.conductance[:, [ia]].toarray().ravel())
+        h[ia] = 1.0
     # reachability of A without entering another absorbing patch
     keep = ~system.is_absorbing
     keep[ia] = True
@@ -624,7 +628,7 @@ def expected_steps(walk, crossing_time=None):
     return t
 
 
-def release_expected_steps(walk, crossing_time=None):
+def release_expected_steps(walk, crossing_time=None, *, steps=None, time=None):
     """Expected steps (and time) from release at each patch until arrival at another patch or death.
 
     With t the per-node expected steps and mu_a the release distribution, one
@@ -635,6 +639,16 @@ def release_expected_steps(walk, crossing_time=None):
 
     and the expected time (no time is spent inside patches) is (mu_a . t_tau) / e_a.
 
+    Parameters
+    ----------
+    walk : AbsorbingWalk
+        Every patch absorbing.
+    crossing_time : ndarray, shape (n_nodes,), optional
+        Per-node crossing time (:func:`node_crossing_time`).
+    steps, time : ndarray, shape (n_nodes,), optional
+        ``expected_steps(walk)`` and ``expected_steps(walk, crossing_time)``
+        when already computed; each saves one solve.
+
     Returns
     -------
     pandas.DataFrame
@@ -643,8 +657,10 @@ def release_expected_steps(walk, crossing_time=None):
     """
     _check_all_absorbing(walk)
     graph = walk.graph
-    t = expected_steps(walk)
-    tt = expected_steps(walk, crossing_time) if crossing_time is not None else None
+    t = expected_steps(walk) if steps is None else steps
+    tt = None
+    if crossing_time is not None:
+        tt = expected_steps(walk, crossing_time) if time is None else time
     out = {"release_patch": [int(p) for p in graph.patch_ids], "expected_steps": []}
     if tt is not None:
         out["expected_time"] = []
@@ -683,8 +699,16 @@ def expected_visits(walk, *, release_patch=None, source=None):
     -------
     ndarray, shape (n_nodes,)
         Expected visits (per walker released, or per unit of source). Other
-        patches, where walkers stop, get 0; stranded nodes ``inf`` if any
-        walker can reach them (never, for a connected start) and 0 otherwise.
+        patches, where walkers stop, get 0; so do stranded nodes, which no
+        walker from a node where walks end can reach.
+
+    Raises
+    ------
+    InputError
+        Neither or both of ``release_patch`` and ``source``; an unknown patch
+        id; a source of the wrong length; walkers released where no walk
+        ends (a patch that reaches no other patch without mortality, or a
+        stranded node), since their visits would be infinite.
     """
     _check_all_absorbing(walk)
     graph = walk.graph

@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
@@ -35,6 +35,7 @@ class LeastCost:
     distance: np.ndarray
     predecessors: np.ndarray
     step_length: sp.csr_array
+    _paths: dict = field(default_factory=dict, init=False, repr=False)
 
     @property
     def matrix(self):
@@ -43,14 +44,22 @@ class LeastCost:
         return self.distance[:, :k].copy()
 
     def path(self, a, b):
-        """Nodes of the cheapest route from patch a to patch b, a first; empty when none exists."""
-        if not np.isfinite(self.distance[a, b]):
-            return np.array([], dtype=np.int64)
-        nodes = [b]
-        pred = self.predecessors[a]
-        while nodes[-1] != a:
-            nodes.append(int(pred[nodes[-1]]))
-        return np.array(nodes[::-1], dtype=np.int64)
+        """Nodes of the cheapest route from patch a to patch b, a first; empty when none exists.
+
+        Each route is traced once and kept: the table, the route count and the
+        per-pair maps all ask for the same routes.
+        """
+        key = (int(a), int(b))
+        if key not in self._paths:
+            nodes = []
+            if np.isfinite(self.distance[a, b]):
+                nodes, pred = [b], self.predecessors[a]
+                while nodes[-1] != a:
+                    nodes.append(int(pred[nodes[-1]]))
+            route = np.array(nodes[::-1], dtype=np.int64)
+            route.flags.writeable = False
+            self._paths[key] = route
+        return self._paths[key]
 
     def path_length(self, nodes):
         """Length in map units of a route given as consecutive nodes."""

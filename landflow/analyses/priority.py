@@ -17,7 +17,7 @@ from .current import cumulative_current, pair_current, pair_weights
 from .resistance import effective_resistance
 
 __all__ = [
-    "pair_nodes", "objective_weights", "connectivity", "link_conductance", "corridor_ranking",
+    "pair_nodes", "check_connected_pairs", "objective_weights", "connectivity", "link_conductance", "corridor_ranking",
     "Corridor", "corridor", "corridor_cells_table", "restoration_gain", "scenario_change",
 ]
 
@@ -47,6 +47,18 @@ def pair_nodes(graph, pairs):
     return out
 
 
+def check_connected_pairs(graph, pairs):
+    """Raise InputError for the first node pair whose patches lie in separate pieces of the landscape.
+
+    Needs only the graph's components, so a study can check its pairs before any solve.
+    """
+    comp, ids = graph.components, graph.patch_ids
+    for a, b in pairs:
+        if comp[a] != comp[b]:
+            raise InputError(f"patches {ids[a]} and {ids[b]} lie in separate pieces of the landscape; their "
+                             "effective resistance is infinite and has no derivative. Choose a connected pair.")
+
+
 def objective_weights(voltages, pairs=None, strength=None):
     """Symmetric k x k weights of an objective sum over pairs.
 
@@ -61,13 +73,10 @@ def objective_weights(voltages, pairs=None, strength=None):
     """
     if pairs is None:
         return pair_weights(voltages, strength)
+    check_connected_pairs(voltages.graph, pairs)
     k = voltages.graph.n_patches
     w = np.zeros((k, k))
-    ids = voltages.graph.patch_ids
     for a, b in pairs:
-        if not voltages.connected(a, b):
-            raise InputError(f"patches {ids[a]} and {ids[b]} lie in separate pieces of the landscape; their "
-                             "effective resistance is infinite and has no derivative. Choose a connected pair.")
         w[a, b] = w[b, a] = 1.0
     return w
 
@@ -467,11 +476,17 @@ def scenario_change(before, after, weights_before, weights_after):
         The two graphs do not have the same patches.
     """
     g0, g1 = before.graph, after.graph
-    if g0.shape != g1.shape or not np.array_equal(g0.patch_ids, g1.patch_ids):
+    if g0.shape != g1.shape:
+        raise InputError(f"the changed landscape has {g1.shape[0]} x {g1.shape[1]} cells but the present one "
+                         f"{g0.shape[0]} x {g0.shape[1]}; both must lie on the same grid. Resample the changed "
+                         "raster onto the present one's grid.")
+    if not np.array_equal(g0.patch_ids, g1.patch_ids):
         lost = np.setdiff1d(g0.patch_ids, g1.patch_ids)
-        raise InputError("the changed landscape must keep every patch on the same grid; "
-                         f"patch(es) {', '.join(map(str, lost)) or '(grid differs)'} are lost. "
-                         "Keep patch cells inside the changed landscape.")
+        gained = np.setdiff1d(g1.patch_ids, g0.patch_ids)
+        which = (f"patch(es) {', '.join(map(str, lost))} are lost" if lost.size
+                 else f"patch(es) {', '.join(map(str, gained))} are new")
+        raise InputError(f"the changed landscape must keep every patch on the same grid; {which}. "
+                         "Keep the same patches, with their cells inside the changed landscape.")
     r0, r1 = effective_resistance(before), effective_resistance(after)
     k = g0.n_patches
     a, b = np.triu_indices(k, 1)

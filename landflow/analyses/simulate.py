@@ -15,6 +15,7 @@ import numpy as np
 import pandas as pd
 
 from ..errors import InputError
+from .absorption import _patch_index, check_mortality, node_crossing_time
 
 __all__ = ["WalkSample", "simulate_walks", "sample_table", "DIED", "UNFINISHED"]
 
@@ -147,9 +148,10 @@ def simulate_walks(graph, *, release_patch=None, start_cell=None, absorbing=None
     absorbing : sequence of int, optional
         Patch ids that stop the walk; default every patch except the release patch.
     mortality : ndarray, shape of the grid, optional
-        Per-step death probability in [0, 1) of each cell; ignored on patch cells.
+        Per-step death probability in [0, 1) of each landscape cell (checked as
+        by :func:`landflow.absorbing_walk`); not applied on patch cells.
     crossing_time : ndarray, shape of the grid, optional
-        Time added per visit to each (non-patch) cell.
+        Time (>= 0) added per visit to each non-patch cell.
     walkers : int
     seed : int or numpy.random.Generator
     max_steps : int
@@ -191,37 +193,27 @@ def simulate_walks(graph, *, release_patch=None, start_cell=None, absorbing=None
     if not (isinstance(walkers, (int, np.integer)) and walkers >= 2):
         raise InputError(f"walkers must be a whole number >= 2; got {walkers!r}.")
 
-    def index(p, key):
-        hit = np.flatnonzero(ids == p) if isinstance(p, (int, np.integer)) and not isinstance(p, bool) else []
-        if len(hit) == 0:
-            raise InputError(f"{key}: unknown patch id {p!r}; the patches are {', '.join(map(str, ids.tolist()))}.")
-        return int(hit[0])
-
     if release_patch is not None:
-        start = index(release_patch, "release patch")
+        start = _patch_index(graph, release_patch, "release patch")
     else:
         r, c = start_cell
         if not (0 <= r < graph.shape[0] and 0 <= c < graph.shape[1]) or graph.node_of_cell[r, c] < 0:
-            raise InputError(f"start cell (row {r}, col {c}) is not a landscape cell.")
+            raise InputError(f"start cell (row {r}, col {c}) is not a landscape cell (outside the grid, nodata or "
+                             "a barrier). Choose a cell inside the landscape.")
         start = int(graph.node_of_cell[r, c])
     is_absorbing = np.zeros(n, dtype=bool)
     if absorbing is None:
         is_absorbing[:k] = True
     else:
-        is_absorbing[[index(p, "absorbing patches") for p in absorbing]] = True
+        is_absorbing[[_patch_index(graph, p, "absorbing patches") for p in absorbing]] = True
     if release_patch is not None:
         is_absorbing[start] = False
 
     cells = graph.node_of_cell >= k
     kappa = np.zeros(n)
-    if mortality is not None:
-        kappa[graph.node_of_cell[cells]] = np.asarray(mortality, dtype=np.float64)[cells]
-        if not ((kappa >= 0) & (kappa < 1)).all():
-            raise InputError("mortality must lie in [0, 1) on every landscape cell.")
-    tau = None
-    if crossing_time is not None:
-        tau = np.zeros(n)
-        tau[graph.node_of_cell[cells]] = np.asarray(crossing_time, dtype=np.float64)[cells]
+    if mortality is not None:           # the same checks (shape, [0, 1), first bad cell) as absorbing_walk
+        kappa[graph.node_of_cell[cells]] = check_mortality(mortality, graph)[cells]
+    tau = None if crossing_time is None else node_crossing_time(graph, crossing_time)
 
     cum, indptr, indices, total = _hop_table(graph.conductance.tocsr())
     outcome = np.full(walkers, UNFINISHED, dtype=np.int64)

@@ -287,3 +287,67 @@ def test_study_reports_unreachable_cells(study_dir):
     with rasterio.open(study_dir / "out" / "hitting_probability_1_before_2.tif") as src:
         h = src.read(1)
     assert (h[:, 5:] == 0).all() and (h[:, :4] > 0.99).all()
+
+
+@pytest.mark.parametrize("table, key", [
+    ("[analyses.absorption_probability]\npatches = [1, 8]", "absorption_probability.patches"),
+    ("[analyses.expected_visits]\nrelease_patches = [8]", "expected_visits.release_patches"),
+    ("[analyses.walk_simulation]\nrelease_patches = [8]", "walk_simulation.release_patches"),
+    ("[analyses.hitting_probability]\nbefore_any_other = [8]", "hitting_probability.before_any_other"),
+])
+def test_study_check_names_unknown_patch_ids_before_solving(study_dir, table, key):
+    # the check (no solve) already refuses an id that is no patch, naming the key and the known ids
+    study = study_dir / "study.toml"
+    study.write_text(STUDY.format(extra="").split("[analyses.hitting_probability]")[0] + table + "\n")
+    with pytest.raises(InputError, match=rf"'analyses\.{key}' names unknown patch id\(s\) 8; the patches are "
+                                         r"1, 2, 3\. Use ids of the patch raster"):
+        lf.check_study(study)
+
+
+def test_simulation_inputs_are_checked_like_the_walk():
+    graph = strip([1.0] * 4, [1, 0, 0, 2])
+    with pytest.raises(InputError, match=r"mortality: 1 landscape cell\(s\) have a per-step death probability "
+                                         r"outside \[0, 1\) \(first: 1 at row 0, col 2\)"):
+        simulate_walks(graph, start_cell=(0, 1), mortality=np.array([[0.0, 0.1, 1.0, 0.0]]))
+    with pytest.raises(InputError, match=r"has shape \(1, 3\) but the landscape has \(1, 4\)"):
+        simulate_walks(graph, start_cell=(0, 1), crossing_time=np.ones((1, 3)))
+    with pytest.raises(InputError, match=r"crossing time that is negative or missing \(first: -1 at row 0, col 1\)"):
+        simulate_walks(graph, start_cell=(0, 1), crossing_time=np.array([[0.0, -1.0, 1.0, 0.0]]))
+    with pytest.raises(InputError, match=r"start cell \(row 0, col 7\) is not a landscape cell .* Choose a cell"):
+        simulate_walks(graph, start_cell=(0, 7))
+
+
+def test_expected_visits_refuses_walks_that_never_end():
+    # pieces: [patch 1, cell] | [patch 2, cell] | [cell, cell], split by nodata cells
+    graph = strip([1.0, 1.0, np.nan, 1.0, 1.0, np.nan, 1.0, 1.0], [1, 0, 0, 2, 0, 0, 0, 0])
+    with pytest.warns(StrandedWalkWarning):
+        walk = absorbing_walk(graph)
+    with pytest.raises(InputError, match=r"walkers released from patch 1 can reach no other patch and cannot die"):
+        expected_visits(walk, release_patch=1)
+    source = np.zeros(graph.n_nodes)
+    source[graph.node_of_cell[0, 7]] = 1.0
+    with pytest.raises(InputError, match=r"1 released node\(s\) lie where no walk ends"):
+        expected_visits(walk, source=source)
+    with pytest.raises(InputError, match=r"source must give one value per node \(6\); got shape \(3,\)"):
+        expected_visits(walk, source=np.ones(3))
+    with pytest.raises(InputError, match=r"needs exactly one of release_patch \(a patch id\) or source"):
+        expected_visits(walk)
+    with pytest.warns(StrandedWalkWarning):
+        only_2 = absorbing_walk(graph, absorbing=[2])
+    with pytest.raises(InputError, match=r"needs every patch absorbing; build the walk with absorbing=None"):
+        expected_visits(only_2, release_patch=2)
+
+
+def test_walk_simulation_table_with_unfinished_walkers(study_dir):
+    # max_steps = 3 leaves most walkers unfinished; every column of the arrival table is then out of all walkers
+    study = study_dir / "study.toml"
+    text = STUDY.format(extra="").split("[analyses.hitting_probability]")[0]
+    study.write_text(text + "[analyses.walk_simulation]\nwalkers = 400\nmax_steps = 3\nrelease_patches = [1]\n")
+    manifest = lf.run_study(study)
+    assert any("were still walking after 3 steps" in w for w in manifest["warnings"])
+    table = pd.read_csv(study_dir / "out" / "walk_simulation_arrival.csv")
+    p, sim = table["exact_probability"], table["simulated_probability"]
+    np.testing.assert_allclose(table["standard_error"], np.sqrt(sim * (1 - sim) / 400))
+    arrived = table["outcome"] == "arrival"
+    np.testing.assert_allclose(table["difference_in_standard_errors"][arrived],
+                               ((sim - p) / np.sqrt(p * (1 - p) / 400))[arrived])

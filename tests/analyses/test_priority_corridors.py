@@ -91,3 +91,13 @@ def test_cell_edges_sum_to_the_merged_graph(kind, rule):
     summed = sp.coo_array((edges.conductance[keep], (ni[keep], nj[keep])), shape=(n, n)).toarray()
     np.testing.assert_allclose(summed + summed.T, graph.conductance.toarray(), rtol=1e-12)
     assert set(np.unique(edges.distance).round(6)) == {1.0, 2.0, round(np.sqrt(5.0), 6)}
+
+
+def test_scenario_change_on_another_grid_is_refused():
+    _, voltages = parallel_strips()
+    labels = np.zeros((3, 9), dtype=int)
+    labels[:, 0], labels[:, 8] = 1, 2
+    other = lf.patch_voltages(lf.build_graph(lf.Grid.from_array(np.ones((3, 9))), labels, neighbours=4))
+    with pytest.raises(InputError, match=r"the changed landscape has 3 x 9 cells but the present one 3 x 8; both "
+                                         r"must lie on the same grid\. Resample"):
+        lf.scenario_change(voltages, other, np.ones((2, 2)), np.ones((2, 2)))

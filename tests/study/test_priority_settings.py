@@ -74,6 +74,9 @@ def test_objective_pair_in_separate_pieces(folder):
     s = study(folder, {"restoration_gain": {"pairs": [[1, 3]]}})
     with pytest.raises(ConfigError, match=r"'analyses.restoration_gain.pairs': patches 1 and 3 lie in separate "
                                           "pieces of the landscape"):
+        check_study(s)                         # known from the graph alone, before any solve
+    with pytest.raises(ConfigError, match=r"'analyses.restoration_gain.pairs': patches 1 and 3 lie in separate "
+                                          "pieces of the landscape"):
         run_study(s)
     assert not (folder / "out").exists()
 
@@ -128,3 +131,16 @@ def test_all_steps_run_on_a_split_landscape(folder):
     assert np.isinf(ranking["effective_resistance"][1:]).all()
     change = pd.read_csv(folder / "out" / "scenario_change.csv")
     assert (change["resistance_change"].fillna(0) == 0).all()
+    # one solve of the piece holding patches 1 and 2, shared by the steps, and one more on the changed raster
+    assert len(manifest["solvers"]) == 2
+
+
+def test_gain_cells_list_only_landscape_cells(folder):
+    # 48 cells, 6 of them nodata: asking for more cells than the landscape holds lists the 42 landscape cells
+    s = study(folder, {"restoration_gain": {"top_cells": 100}})
+    run_study(s)
+    import pandas as pd
+    cells = pd.read_csv(folder / "out" / "restoration_gain_cells.csv")
+    assert len(cells) == 42
+    assert (cells["col"] != 4).all() and np.isfinite(cells["gain"]).all()
+    assert (np.diff(cells["gain"]) <= 0).all()

@@ -22,12 +22,15 @@ def patch_pair_list(value):
 
 
 def patch_ids_or_all(ctx, wanted, key):
-    """The requested patch ids (all patches when empty), each checked against the landscape's patches."""
+    """The requested patch ids (all patches when empty), each checked against the landscape's patches.
+
+    Steps call it from ``check`` too, so an unknown id stops the run before any solve.
+    """
     known = [int(p) for p in ctx.graph.patch_ids]
     if not wanted:
         return known
     unknown = [p for p in wanted if p not in known]
     if unknown:
-        raise InputError(f"{ctx.study.path}: '{key}' names unknown patch id(s) {', '.join(map(str, unknown))}; "
-                         f"the patches are {', '.join(map(str, known))}.")
+        raise InputError(f"{ctx.study.path or 'study'}: '{key}' names unknown patch id(s) {', '.join(map(str, unknown))}; "
+                         f"the patches are {', '.join(map(str, known))}. Use ids of the patch raster or points file.")
     return list(wanted)

@@ -15,8 +15,12 @@ SETTINGS = Section({
    "probability of dying first (death_probability.tif).")
 
 
+def check(ctx, settings):
+    return patch_ids_or_all(ctx, settings["patches"], f"analyses.{NAME}.patches")
+
+
 def run(ctx, settings):
-    wanted = patch_ids_or_all(ctx, settings["patches"], f"analyses.{NAME}.patches")
+    wanted = check(ctx, settings)
     walk = ctx.absorbing_walk
     probability, death = absorption_probability(walk)
     ids = [int(p) for p in ctx.graph.patch_ids]

@@ -21,18 +21,19 @@ def run(ctx, settings):
         grid = ctx.read_aligned(settings["crossing_time"], "crossing-time raster")
         tau = node_crossing_time(ctx.graph, np.where(grid.mask, grid.values, np.nan),
                                  source=str(settings["crossing_time"]), where=ctx.grid.where)
-    t = expected_steps(walk)
-    t[~np.isfinite(t)] = np.nan
+    steps = expected_steps(walk)
+    t = np.where(np.isfinite(steps), steps, np.nan)
     cells = ctx.write_raster("expected_steps.tif", t, units="steps",
                              description="expected number of steps until a walker from each cell enters a patch "
                                          "or dies (0 on patches; nodata where the walk never ends)")
     ctx.quicklook("expected_steps.png", cells, title="Expected steps until a patch is reached", units="steps")
+    time = None
     if tau is not None:
         time = expected_steps(walk, tau)
-        time[~np.isfinite(time)] = np.nan
-        ctx.write_raster("expected_time.tif", time, units="time unit of the crossing-time raster",
+        ctx.write_raster("expected_time.tif", np.where(np.isfinite(time), time, np.nan),
+                         units="time unit of the crossing-time raster",
                          description="expected time until a walker from each cell enters a patch or dies")
-    ctx.write_table("expected_steps_from_patch.csv", release_expected_steps(walk, tau),
+    ctx.write_table("expected_steps_from_patch.csv", release_expected_steps(walk, tau, steps=steps, time=time),
                     units="steps; time unit of the crossing-time raster",
                     description="per release patch: expected steps (and time) until arrival at another patch "
                                 "or death")

@@ -17,11 +17,17 @@ SETTINGS = Section({
 }, "Expected visits: where walkers spend their time before they enter a patch (or die).")
 
 
-def run(ctx, settings):
-    walk = ctx.absorbing_walk
+def check(ctx, settings):
+    """The release patches: those listed, else every patch unless a source raster is given."""
     wanted = settings["release_patches"]
     if wanted or settings["source_raster"] is None:
         wanted = patch_ids_or_all(ctx, wanted, f"analyses.{NAME}.release_patches")
+    return wanted
+
+
+def run(ctx, settings):
+    walk = ctx.absorbing_walk
+    wanted = check(ctx, settings)
     for pid in wanted:
         visits = expected_visits(walk, release_patch=pid)
         cells = ctx.write_raster(f"expected_visits_from_patch_{pid}.tif", visits, units="visits per walker",

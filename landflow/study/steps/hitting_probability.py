@@ -15,13 +15,18 @@ SETTINGS = Section({
    "patch B (other patches do not stop it), or before any other patch. Uses [mortality] when given.")
 
 
-def run(ctx, settings):
+def check(ctx, settings):
     pairs, singles = settings["pairs"], settings["before_any_other"]
     if not pairs and not singles:
-        raise ConfigError(f"{ctx.study.path}: [analyses.{NAME}] needs 'pairs' (such as [[1, 2]]) or "
+        raise ConfigError(f"{ctx.study.path or 'study'}: [analyses.{NAME}] needs 'pairs' (such as [[1, 2]]) or "
                           "'before_any_other' (such as [1]).")
     patch_ids_or_all(ctx, [p for pair in pairs for p in pair], f"analyses.{NAME}.pairs")
     patch_ids_or_all(ctx, singles, f"analyses.{NAME}.before_any_other")
+    return pairs, singles
+
+
+def run(ctx, settings):
+    pairs, singles = check(ctx, settings)
     walk = ctx.absorbing_walk
     units = "probability (0 to 1)"
     for a, b in pairs:

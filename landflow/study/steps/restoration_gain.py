@@ -3,7 +3,7 @@
 import numpy as np
 import pandas as pd
 
-from ...analyses.priority import objective_weights, restoration_gain
+from ...analyses.priority import check_connected_pairs, objective_weights, restoration_gain
 from ...errors import ConfigError, InputError
 from ..schema import Key, Section
 from ._pairs import check_pair_list, resolve_pairs
@@ -23,17 +23,20 @@ SETTINGS = Section({
 
 
 def check(ctx, settings):
-    resolve_pairs(ctx, settings["pairs"], "analyses.restoration_gain.pairs")
+    """The objective's node pairs (None = every connected pair), each in one piece of the landscape."""
+    pairs = resolve_pairs(ctx, settings["pairs"], "analyses.restoration_gain.pairs")
+    try:
+        check_connected_pairs(ctx.graph, pairs or [])
+    except InputError as exc:
+        raise ConfigError(f"{ctx.study.path or 'study'}: 'analyses.restoration_gain.pairs': {exc}") from None
+    return pairs
 
 
 def run(ctx, settings):
+    pairs = check(ctx, settings)
     voltages = ctx.voltages
-    pairs = resolve_pairs(ctx, settings["pairs"], "analyses.restoration_gain.pairs")
     strength = ctx.strength if settings["weight_by_strength"] and pairs is None else None
-    try:
-        weights = objective_weights(voltages, pairs, strength)
-    except InputError as exc:
-        raise ConfigError(f"{ctx.study.path or 'study'}: 'analyses.restoration_gain.pairs': {exc}") from None
+    weights = objective_weights(voltages, pairs, strength)
     gain = restoration_gain(voltages, ctx.grid, weights, kind=ctx.kind)
     per = "reduction of resistance" if ctx.kind == "resistance" else "increase of conductance"
     units = f"objective units per unit {per} (map units x pair weight for a resistance surface)"
@@ -45,8 +48,9 @@ def run(ctx, settings):
                      description="gain times the cell's own value: the first-order drop of the objective if "
                                  "the cell's value changed by 100% (f times this for a fraction f)")
     ctx.quicklook("restoration_gain.png", gain, title="Restoration gain", units=units)
-    flat = np.nan_to_num(gain, nan=-np.inf).reshape(-1)
-    top = np.argsort(-flat, kind="stable")[: settings["top_cells"]]
+    flat = gain.reshape(-1)
+    landscape = np.flatnonzero(np.isfinite(flat))          # cells outside the landscape have no gain to list
+    top = landscape[np.argsort(-flat[landscape], kind="stable")[: settings["top_cells"]]]
     rows, cols = np.unravel_index(top, gain.shape)
     x, y = ctx.grid.xy(rows, cols)
     patch = ctx.patches.labels[rows, cols]

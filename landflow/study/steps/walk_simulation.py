@@ -27,8 +27,12 @@ SETTINGS = Section({
    "number of steps beside the exact expected steps (walk_simulation_steps.csv). Uses [mortality] when given.")
 
 
+def check(ctx, settings):
+    return patch_ids_or_all(ctx, settings["release_patches"], f"analyses.{NAME}.release_patches")
+
+
 def run(ctx, settings):
-    wanted = patch_ids_or_all(ctx, settings["release_patches"], f"analyses.{NAME}.release_patches")
+    wanted = check(ctx, settings)
     walk = ctx.absorbing_walk
     with ctx.forward_warnings():
         exact = arrival_table(walk)
@@ -60,12 +64,12 @@ def run(ctx, settings):
     if not arrival:
         return
     arrival = pd.concat(arrival, ignore_index=True)
-    # judged against the binomial standard error of the exact probability, defined even when no walker arrived
+    # judged against the binomial standard error of the exact probability, defined even when no walker arrived;
+    # the simulated shares (and their standard errors) are out of every walker released, unfinished included
     p = arrival["exact_probability"].to_numpy(dtype=float)
-    n = arrival["release_patch"].map({row["release_patch"]: row["walkers"] - row["unfinished"] for row in steps})
     with np.errstate(divide="ignore", invalid="ignore"):
         arrival["difference_in_standard_errors"] = (
-            (arrival["simulated_probability"] - p) / np.sqrt(p * (1 - p) / n.to_numpy(dtype=float)))
+            (arrival["simulated_probability"] - p) / np.sqrt(p * (1 - p) / settings["walkers"]))
     ctx.write_table("walk_simulation_arrival.csv", arrival, units="probability (0 to 1); standard errors",
                     description="simulated share of walkers from each release patch arriving at each other patch "
                                 "or dying, its standard error, the exact probability and their difference in "
