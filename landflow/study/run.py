@@ -70,9 +70,6 @@ class RunContext:
             self.kind = kind
             spec = self.study.settings["patches"]
             if spec["raster"] is not None:
-                if spec["strength_column"] is not None:
-                    raise ConfigError(f"{self.study.path}: 'patches.strength_column' only applies to patch points; "
-                                      "with a patch raster use 'patches.strength_raster'.")
                 self.patches = read_patch_raster(self._input(spec["raster"]), self.grid)
             else:
                 self.patches = read_patch_points(self._input(spec["points"]), self.grid,
@@ -138,9 +135,6 @@ class RunContext:
         """Per-cell death probability per step from [mortality] (checked), or None."""
         spec = self.study.settings.get("mortality") or {}
         raster, rate = spec.get("raster"), spec.get("death_per_resistance")
-        if raster is not None and rate is not None:
-            raise ConfigError(f"{self.study.path}: [mortality] has both 'raster' and 'death_per_resistance'; "
-                              "give one of them.")
         from ..analyses.absorption import check_mortality, mortality_from_resistance
         if raster is not None:
             grid = self.read_aligned(raster, "mortality raster")

@@ -15,6 +15,11 @@ SETTINGS = Section({
    "probability of dying first (death_probability.tif).")
 
 
+def check(ctx, settings):
+    """Every named patch exists, checked before any step solves."""
+    patch_ids_or_all(ctx, settings["patches"], f"analyses.{NAME}.patches")
+
+
 def run(ctx, settings):
     wanted = patch_ids_or_all(ctx, settings["patches"], f"analyses.{NAME}.patches")
     walk = ctx.absorbing_walk

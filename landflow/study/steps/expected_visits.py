@@ -17,6 +17,11 @@ SETTINGS = Section({
 }, "Expected visits: where walkers spend their time before they enter a patch (or die).")
 
 
+def check(ctx, settings):
+    """Every named patch exists, checked before any step solves."""
+    patch_ids_or_all(ctx, settings["release_patches"], f"analyses.{NAME}.release_patches")
+
+
 def run(ctx, settings):
     walk = ctx.absorbing_walk
     wanted = settings["release_patches"]

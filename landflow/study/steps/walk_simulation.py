@@ -27,6 +27,11 @@ SETTINGS = Section({
    "number of steps beside the exact expected steps (walk_simulation_steps.csv). Uses [mortality] when given.")
 
 
+def check(ctx, settings):
+    """Every named patch exists, checked before any step solves."""
+    patch_ids_or_all(ctx, settings["release_patches"], f"analyses.{NAME}.release_patches")
+
+
 def run(ctx, settings):
     wanted = patch_ids_or_all(ctx, settings["release_patches"], f"analyses.{NAME}.release_patches")
     walk = ctx.absorbing_walk
