@@ -339,6 +339,16 @@ def _replace_folder(tmp, final):
         shutil.rmtree(old, ignore_errors=True)
 
 
+def _command():
+    """The command line that started this run (``landflow ...`` or ``python -m landflow ...``), or None."""
+    if not sys.argv:
+        return None
+    first = Path(sys.argv[0])
+    if first.name == "__main__.py" and first.parent.name == "landflow":
+        return " ".join(["python -m landflow", *sys.argv[1:]])
+    return " ".join(sys.argv) if first.stem == "landflow" else None
+
+
 def _manifest(ctx, seconds):
     versions = {"python": platform.python_version()}
     for dep in _DEPENDENCIES:
@@ -352,7 +362,7 @@ def _manifest(ctx, seconds):
     return {
         "landflow_version": __version__,
         "study_file": str(ctx.study.path) if ctx.study.path else None,
-        "command": " ".join(sys.argv) if sys.argv and sys.argv[0].endswith("landflow") else None,
+        "command": _command(),
         "versions": versions,
         "platform": platform.platform(),
         "inputs": [{"path": p, "sha256": h} for p, h in ctx.inputs.items()],
