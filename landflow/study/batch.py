@@ -95,7 +95,8 @@ def is_up_to_date(study):
     """True when ``study``'s output folder holds a manifest of exactly this study.
 
     The manifest must record the same landflow version, the same resolved
-    settings, and input files whose SHA-256 still match the files on disk.
+    settings, and input files whose SHA-256 still match the files on disk,
+    and every output it lists must still be in the folder.
     """
     try:
         manifest = json.loads((study.output_folder / "manifest.json").read_text(encoding="utf-8"))
@@ -106,6 +107,8 @@ def is_up_to_date(study):
     if manifest.get("settings") != json.loads(json.dumps(study.resolved())):
         return False
     try:
+        if not all((study.output_folder / item["file"]).is_file() for item in manifest.get("outputs", [])):
+            return False
         return all(_sha256(item["path"]) == item["sha256"] for item in manifest.get("inputs", []))
     except (OSError, KeyError, TypeError):
         return False
@@ -253,12 +256,13 @@ def run_batch(study_files, *, workers=None, scheduler=None, client=None, summary
     progress.close()
     order = [bad.run for bad in invalid] + [run.name for run in runs]
     ordered = [outcomes[name] for name in order]
-    write_sweep_tables(runs, {o.run: o.status for o in ordered})
+    # the summary first: every run's outcome is on disk even if a sweep's comparison cannot be written
     table = pd.DataFrame([{"run": o.run, "status": o.status, "seconds": f"{o.seconds:.3f}", "folder": o.folder,
                            "error": o.error} for o in ordered], columns=SUMMARY_COLUMNS)
     summary = Path(summary) if summary is not None else Path("batch_summary.csv")
     summary.parent.mkdir(parents=True, exist_ok=True)
     write_csv(summary, table)
+    write_sweep_tables(runs, {o.run: o.status for o in ordered})
     return ordered
 
 
