@@ -7,11 +7,13 @@ from ._walk_settings import patch_id_list, patch_ids_or_all, patch_pair_list
 NAME = "hitting_probability"
 SETTINGS = Section({
     "pairs": Key(list, [], "pairs [A, B] of patch ids; for each, a map of P(reach A before B) "
-                           "(hitting_probability_A_before_B.tif)", check=patch_pair_list),
+                           "(hitting_probability_A_before_B.tif)", check=patch_pair_list, example=[[1, 2]]),
     "before_any_other": Key(list, [], "patch ids A; for each, a map of P(reach A before any other patch) "
-                                      "(hitting_probability_A_before_any_other.tif)", check=patch_id_list),
+                                      "(hitting_probability_A_before_any_other.tif)", check=patch_id_list,
+                            example=[1]),
 }, "Hitting probability: for every cell, the chance that a walker starting there reaches patch A before "
-   "patch B (other patches do not stop it), or before any other patch. Uses [mortality] when given.",
+   "patch B (other patches do not stop it), or before any other patch. Give 'pairs', 'before_any_other' or "
+   "both. Uses [mortality] when given.",
     check=lambda s: None if s["pairs"] or s["before_any_other"] else
     "needs 'pairs' (such as [[1, 2]]) or 'before_any_other' (such as [1])")
 
