@@ -3,7 +3,7 @@
 Every study file is expanded and validated first; a file that does not
 validate is reported as failed and the rest still run. A run whose output
 folder holds a manifest matching its current settings, input hashes and
-landflow version is skipped. Each run writes into a temporary folder renamed
+landflow version, and every output that manifest lists, is skipped. Each run writes into a temporary folder renamed
 into place at the end (see :func:`landflow.study.run.run_study`), so a run
 that fails or is killed leaves no folder that looks finished.
 """
