@@ -10,7 +10,6 @@ that fails or is killed leaves no folder that looks finished.
 
 from __future__ import annotations
 
-import hashlib
 import json
 import os
 import sys
@@ -83,14 +82,6 @@ def plan_batch(study_files):
     return runs, invalid
 
 
-def _sha256(path):
-    digest = hashlib.sha256()
-    with open(path, "rb") as fh:
-        for chunk in iter(lambda: fh.read(1 << 20), b""):
-            digest.update(chunk)
-    return digest.hexdigest()
-
-
 def is_up_to_date(study):
     """True when ``study``'s output folder holds a manifest of exactly this study.
 
@@ -98,6 +89,8 @@ def is_up_to_date(study):
     settings, and input files whose SHA-256 still match the files on disk,
     and every output it lists must still be in the folder.
     """
+    from .run import file_sha256
+
     try:
         manifest = json.loads((study.output_folder / "manifest.json").read_text(encoding="utf-8"))
     except (OSError, ValueError):
@@ -109,7 +102,7 @@ def is_up_to_date(study):
     try:
         if not all((study.output_folder / item["file"]).is_file() for item in manifest.get("outputs", [])):
             return False
-        return all(_sha256(item["path"]) == item["sha256"] for item in manifest.get("inputs", []))
+        return all(file_sha256(item["path"]) == item["sha256"] for item in manifest.get("inputs", []))
     except (OSError, KeyError, TypeError):
         return False
 

@@ -86,11 +86,7 @@ class RunContext:
         """Record an input file's SHA-256 for the manifest and return its path."""
         path = Path(path)
         if str(path) not in self.inputs:
-            digest = hashlib.sha256()
-            with open(path, "rb") as fh:
-                for chunk in iter(lambda: fh.read(1 << 20), b""):
-                    digest.update(chunk)
-            self.inputs[str(path)] = digest.hexdigest()
+            self.inputs[str(path)] = file_sha256(path)
         return path
 
     def read_aligned(self, path, what):
@@ -206,6 +202,15 @@ class RunContext:
         path = self._record(name, f"quick-look picture: {title}", units)
         quicklook(path, array, patches=self.patches.labels, title=title, units=units, log_scale=log_scale,
                   categorical=categorical)
+
+
+def file_sha256(path):
+    """The SHA-256 of a file's bytes as hex, read in 1 MB chunks (the manifest's input hashes)."""
+    digest = hashlib.sha256()
+    with open(path, "rb") as fh:
+        for chunk in iter(lambda: fh.read(1 << 20), b""):
+            digest.update(chunk)
+    return digest.hexdigest()
 
 
 def _grid_from_suitability(grid, land):
