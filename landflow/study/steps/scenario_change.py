@@ -58,6 +58,7 @@ def run(ctx, settings):
                      description="change of the cumulative current through each cell caused by the change")
     ctx.quicklook("scenario_current_change.png", change, title="Change of cumulative current",
                   units="A", log_scale=False)
+    ctx.solvers.extend(after.solvers)           # the changed landscape's solves, for the manifest
     worst = after.solvers[0].record() if after.solvers else {}
     before_c, after_c = totals["connectivity_before"], totals["connectivity_after"]
     ctx.summary["scenario: overall connectivity before / after"] = (
