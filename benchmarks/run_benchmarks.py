@@ -412,9 +412,9 @@ def case_table(r):
             lines.append(f"| {label} | failed | - | - | {x['error']} |")
             return
         ratio = base / x["wall"]
-        extra = note
         if len(x.get("runs", [])) > 1:
             note = f"fastest of {', '.join(f'{w:.1f}' for w in x['runs'])} s" + (f"; {note}" if note else "")
+        extra = note
         if "factor" in x:
             extra = f"factorisation {x['factor']:.1f} s + {k - 1} solves {x['solve']:.1f} s" + (f"; {note}" if note else "")
         if "pairs_timed" in x:

@@ -25,7 +25,8 @@ def _parser():
     batch = commands.add_parser(
         "batch", parents=[common], help="run many studies and sweeps on local processes or a Dask cluster",
         description="Run every study file and every run of its [sweep]. Runs whose outputs are up to date "
-                    "(same settings, inputs and landflow version in their manifest.json) are skipped.")
+                    "(same settings, inputs and landflow version in their manifest.json, every output "
+                    "still there) are skipped.")
     batch.add_argument("studies", nargs="+", metavar="STUDY", help="study files (TOML)")
     batch.add_argument("--workers", type=int, default=None, metavar="N",
                        help="local worker processes (default: the number of CPU cores)")

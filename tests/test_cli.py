@@ -87,6 +87,7 @@ def test_manifest_records_inputs_settings_and_solver(demo_run):
     assert manifest["solvers"][0]["worst_relative_residual"] < 1e-6
     assert all((out / o["file"]).is_file() for o in manifest["outputs"])
     assert "total" in manifest["timings_seconds"]
+    assert manifest["command"] == f"python -m landflow run {study}"
 
 
 def test_check_validates_without_writing(demo_run):

@@ -3,14 +3,13 @@
 Every study file is expanded and validated first; a file that does not
 validate is reported as failed and the rest still run. A run whose output
 folder holds a manifest matching its current settings, input hashes and
-landflow version is skipped. Each run writes into a temporary folder renamed
+landflow version, and every output that manifest lists, is skipped. Each run writes into a temporary folder renamed
 into place at the end (see :func:`landflow.study.run.run_study`), so a run
 that fails or is killed leaves no folder that looks finished.
 """
 
 from __future__ import annotations
 
-import hashlib
 import json
 import os
 import sys
@@ -83,20 +82,15 @@ def plan_batch(study_files):
     return runs, invalid
 
 
-def _sha256(path):
-    digest = hashlib.sha256()
-    with open(path, "rb") as fh:
-        for chunk in iter(lambda: fh.read(1 << 20), b""):
-            digest.update(chunk)
-    return digest.hexdigest()
-
-
 def is_up_to_date(study):
     """True when ``study``'s output folder holds a manifest of exactly this study.
 
     The manifest must record the same landflow version, the same resolved
-    settings, and input files whose SHA-256 still match the files on disk.
+    settings, and input files whose SHA-256 still match the files on disk,
+    and every output it lists must still be in the folder.
     """
+    from .run import file_sha256
+
     try:
         manifest = json.loads((study.output_folder / "manifest.json").read_text(encoding="utf-8"))
     except (OSError, ValueError):
@@ -106,7 +100,9 @@ def is_up_to_date(study):
     if manifest.get("settings") != json.loads(json.dumps(study.resolved())):
         return False
     try:
-        return all(_sha256(item["path"]) == item["sha256"] for item in manifest.get("inputs", []))
+        if not all((study.output_folder / item["file"]).is_file() for item in manifest.get("outputs", [])):
+            return False
+        return all(file_sha256(item["path"]) == item["sha256"] for item in manifest.get("inputs", []))
     except (OSError, KeyError, TypeError):
         return False
 
@@ -253,12 +249,13 @@ def run_batch(study_files, *, workers=None, scheduler=None, client=None, summary
     progress.close()
     order = [bad.run for bad in invalid] + [run.name for run in runs]
     ordered = [outcomes[name] for name in order]
-    write_sweep_tables(runs, {o.run: o.status for o in ordered})
+    # the summary first: every run's outcome is on disk even if a sweep's comparison cannot be written
     table = pd.DataFrame([{"run": o.run, "status": o.status, "seconds": f"{o.seconds:.3f}", "folder": o.folder,
                            "error": o.error} for o in ordered], columns=SUMMARY_COLUMNS)
     summary = Path(summary) if summary is not None else Path("batch_summary.csv")
     summary.parent.mkdir(parents=True, exist_ok=True)
     write_csv(summary, table)
+    write_sweep_tables(runs, {o.run: o.status for o in ordered})
     return ordered
 
 

@@ -39,6 +39,19 @@ def _non_negative(value):
     return None if value >= 0 else "must be 0 or more"
 
 
+def _patch_rules(patches):
+    if patches["raster"] is not None and patches["strength_column"] is not None:
+        return ("'patches.strength_column' only applies to patch points; with a patch raster use "
+                "'patches.strength_raster'")
+    return None
+
+
+def _mortality_rules(mortality):
+    if mortality["raster"] is not None and mortality["death_per_resistance"] is not None:
+        return "has both 'raster' and 'death_per_resistance'; give one of them"
+    return None
+
+
 SECTIONS = {
     "landscape": Section({
         "resistance": Key(str, None, "raster of resistance per unit length; nodata = outside", path="input",
@@ -74,7 +87,7 @@ SECTIONS = {
         "strength_column": Key(str, None, "column of the points CSV holding each patch's strength"),
         "strength_raster": Key(str, None, "raster summed over each patch's cells to give its strength", path="input",
                                unit="strength per cell", example="population.tif"),
-    }, "Habitat patches or sample sites.", exactly_one=(("raster", "points"),)),
+    }, "Habitat patches or sample sites.", exactly_one=(("raster", "points"),), check=_patch_rules),
     "mortality": Section({
         "raster": Key(str, None, "raster of per-step death probability in [0, 1) on the landscape's grid; "
                                  "nodata = 0", path="input"),
@@ -82,7 +95,7 @@ SECTIONS = {
                                                  "1 - exp(-value x resistance of the cell)", check=_non_negative,
                                     unit="1 / resistance unit"),
     }, "Optional death of walkers on the way, used by the absorbing-walk analyses. Give at most one key; "
-       "mortality on patch cells is ignored."),
+       "mortality on patch cells is ignored.", check=_mortality_rules),
     "solver": Section({
         "method": Key(str, "auto", "linear solver: auto, direct (sparse LU) or multigrid (AMG + CG)", choices=METHODS),
         "tolerance": Key(float, 1e-8, "relative residual target of iterative solves", check=_positive,

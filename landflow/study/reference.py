@@ -86,7 +86,8 @@ landflow installed and the same paths to inputs and outputs). A run that fails i
 with its error and the others go on. `batch_summary.csv` (or `--summary PATH`) lists each run's
 status (done, skipped, failed), seconds, output folder and error. Rerunning skips every run
 whose `manifest.json` records the same settings, the same input hashes and the same landflow
-version, and redoes the rest; `--force` reruns everything.
+version and whose listed outputs are all still there, and redoes the rest; `--force` reruns
+everything.
 """
 
 

@@ -70,9 +70,6 @@ class RunContext:
             self.kind = kind
             spec = self.study.settings["patches"]
             if spec["raster"] is not None:
-                if spec["strength_column"] is not None:
-                    raise ConfigError(f"{self.study.path}: 'patches.strength_column' only applies to patch points; "
-                                      "with a patch raster use 'patches.strength_raster'.")
                 self.patches = read_patch_raster(self._input(spec["raster"]), self.grid)
             else:
                 self.patches = read_patch_points(self._input(spec["points"]), self.grid,
@@ -89,11 +86,7 @@ class RunContext:
         """Record an input file's SHA-256 for the manifest and return its path."""
         path = Path(path)
         if str(path) not in self.inputs:
-            digest = hashlib.sha256()
-            with open(path, "rb") as fh:
-                for chunk in iter(lambda: fh.read(1 << 20), b""):
-                    digest.update(chunk)
-            self.inputs[str(path)] = digest.hexdigest()
+            self.inputs[str(path)] = file_sha256(path)
         return path
 
     def read_aligned(self, path, what):
@@ -138,9 +131,6 @@ class RunContext:
         """Per-cell death probability per step from [mortality] (checked), or None."""
         spec = self.study.settings.get("mortality") or {}
         raster, rate = spec.get("raster"), spec.get("death_per_resistance")
-        if raster is not None and rate is not None:
-            raise ConfigError(f"{self.study.path}: [mortality] has both 'raster' and 'death_per_resistance'; "
-                              "give one of them.")
         from ..analyses.absorption import check_mortality, mortality_from_resistance
         if raster is not None:
             grid = self.read_aligned(raster, "mortality raster")
@@ -212,6 +202,15 @@ class RunContext:
         path = self._record(name, f"quick-look picture: {title}", units)
         quicklook(path, array, patches=self.patches.labels, title=title, units=units, log_scale=log_scale,
                   categorical=categorical)
+
+
+def file_sha256(path):
+    """The SHA-256 of a file's bytes as hex, read in 1 MB chunks (the manifest's input hashes)."""
+    digest = hashlib.sha256()
+    with open(path, "rb") as fh:
+        for chunk in iter(lambda: fh.read(1 << 20), b""):
+            digest.update(chunk)
+    return digest.hexdigest()
 
 
 def _grid_from_suitability(grid, land):
@@ -345,6 +344,16 @@ def _replace_folder(tmp, final):
         shutil.rmtree(old, ignore_errors=True)
 
 
+def _command():
+    """The command line that started this run (``landflow ...`` or ``python -m landflow ...``), or None."""
+    if not sys.argv:
+        return None
+    first = Path(sys.argv[0])
+    if first.name == "__main__.py" and first.parent.name == "landflow":
+        return " ".join(["python -m landflow", *sys.argv[1:]])
+    return " ".join(sys.argv) if first.stem == "landflow" else None
+
+
 def _manifest(ctx, seconds):
     versions = {"python": platform.python_version()}
     for dep in _DEPENDENCIES:
@@ -358,7 +367,7 @@ def _manifest(ctx, seconds):
     return {
         "landflow_version": __version__,
         "study_file": str(ctx.study.path) if ctx.study.path else None,
-        "command": " ".join(sys.argv) if sys.argv and sys.argv[0].endswith("landflow") else None,
+        "command": _command(),
         "versions": versions,
         "platform": platform.platform(),
         "inputs": [{"path": p, "sha256": h} for p, h in ctx.inputs.items()],

@@ -113,7 +113,7 @@ def expand_study(path, *, name=None):
     for run, combo in zip(names, combos):
         study_raw = copy.deepcopy(raw)
         for key, value in zip(keys, combo):
-            _set_dotted(study_raw, key, value)
+            _set_dotted(study_raw, key, value, source)
         study_raw.setdefault("output", {})["folder"] = str(sweep_folder / run)
         described = ", ".join(f"{k} = {v!r}" for k, v in zip(keys, combo))
         study = study_from_dict(study_raw, base_dir=base_dir, source=f"{source} (sweep run '{run}': {described})",
@@ -129,7 +129,7 @@ def expand_study(path, *, name=None):
 def _read_sweep(table, raw, source):
     if not isinstance(table, dict) or not table:
         raise ConfigError(f"{source}: [sweep] must be a table of setting = [values], for example "
-                          "\"landscape.neighbours\" = [4, 8]; got {table!r}.")
+                          f"\"landscape.neighbours\" = [4, 8]; got {table!r}.")
     flat = {}
 
     def walk(prefix, node):
@@ -154,9 +154,12 @@ def _read_sweep(table, raw, source):
         if parts[0] == "analyses" and parts[1] not in raw.get("analyses", {}):
             raise ConfigError(f"{source}: [sweep] varies '{key}', but the study does not request "
                               f"[analyses.{parts[1]}]. Add that table or drop the key from [sweep].")
-        if not isinstance(values, list) or not values:
+        if not isinstance(values, list):
             raise ConfigError(f"{source}: 'sweep.{key}' must be a non-empty list of values to try, got "
                               f"{type(values).__name__} {values!r}. Write for example \"{key}\" = [{values!r}].")
+        if not values:
+            raise ConfigError(f"{source}: 'sweep.{key}' must be a non-empty list of values to try, got an empty "
+                              f"list. List the values, or remove the key from [sweep].")
         if len(set(map(repr, values))) != len(values):
             raise ConfigError(f"{source}: 'sweep.{key}' lists a value twice ({values!r}); each run must differ.")
     return flat
@@ -168,13 +171,14 @@ def _resolved(study, key):
     return str(value) if isinstance(value, Path) else value
 
 
-def _set_dotted(raw, key, value):
+def _set_dotted(raw, key, value, source):
     *tables, leaf = key.split(".")
     node = raw
     for t in tables:
         node = node.setdefault(t, {})
         if not isinstance(node, dict):
-            raise ConfigError(f"[{'.'.join(tables)}] must be a table to vary '{key}'.")
+            raise ConfigError(f"{source}: [{'.'.join(tables)}] must be a table to vary '{key}'; "
+                              f"got {type(node).__name__} {node!r}.")
     node[leaf] = value
 
 
@@ -184,8 +188,7 @@ def _label(value):
     if isinstance(value, float):
         return format(value, "g")
     if isinstance(value, str):
-        stem = Path(value).stem if ("/" in value or "." in value) else value
-        return stem
+        return Path(value).stem if ("/" in value or "." in value) else value
     return str(value)
 
 
@@ -237,7 +240,7 @@ def write_sweep_tables(runs, statuses):
         for run in members:
             status = statuses.get(run.name, "not run")
             rows.append({"run": run.run_name, "status": status, "folder": str(run.folder),
-                         **{k: v for k, v in run.study.variation.items()}})
+                         **run.study.variation})
             table = run.folder / "effective_resistance.csv"
             if status in ("done", "skipped") and table.exists():
                 frame = pd.read_csv(table, usecols=["patch_a", "patch_b", "resistance"])

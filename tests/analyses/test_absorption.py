@@ -11,6 +11,7 @@ import rasterio
 from rasterio.transform import from_origin
 
 import landflow as lf
+from landflow.study.config import load_study
 from landflow.analyses.absorption import (StrandedWalkWarning, absorbing_walk, absorption_probability,
                                           expected_steps, expected_visits, hitting_probability,
                                           mortality_from_resistance, most_likely_destination, node_crossing_time,
@@ -271,6 +272,38 @@ def test_study_bad_requests(study_dir):
     write_tif(study_dir / "neg.tif", np.full((6, 7), -1.0))
     with pytest.raises(InputError, match=r"neg\.tif: 39 landscape cell\(s\) have a crossing time that is negative"):
         lf.run_study(study)
+
+
+@pytest.mark.parametrize("old, new, error", [
+    ("pairs = [[1, 2]]", "pairs = [[1, 8]]", r"'analyses\.hitting_probability\.pairs' names unknown patch id\(s\) 8"),
+    ("before_any_other = [3]", "before_any_other = [9]",
+     r"'analyses\.hitting_probability\.before_any_other' names unknown patch id\(s\) 9"),
+    ("[analyses.absorption_probability]", "[analyses.absorption_probability]\npatches = [4]",
+     r"'analyses\.absorption_probability\.patches' names unknown patch id\(s\) 4"),
+    ("release_patches = [1]\nsource", "release_patches = [5]\nsource",
+     r"'analyses\.expected_visits\.release_patches' names unknown patch id\(s\) 5"),
+    ("walkers = 200\nrelease_patches = [1]", "walkers = 200\nrelease_patches = [6]",
+     r"'analyses\.walk_simulation\.release_patches' names unknown patch id\(s\) 6"),
+])
+def test_study_unknown_patch_ids_are_found_before_solving(study_dir, old, new, error):
+    # 'landflow check' never solves, so an error it raises is one found before any solve
+    study = study_dir / "study.toml"
+    text = STUDY.format(extra="")
+    assert old in text
+    study.write_text(text.replace(old, new, 1))
+    with pytest.raises(InputError, match=error):
+        lf.check_study(study)
+
+
+def test_study_settings_errors_before_reading_inputs(study_dir):
+    study = study_dir / "study.toml"
+    study.write_text(STUDY.format(extra="").replace("pairs = [[1, 2]]\nbefore_any_other = [3]", ""))
+    with pytest.raises(ConfigError, match=r"\[analyses\.hitting_probability\] needs 'pairs' \(such as "
+                                          r"\[\[1, 2\]\]\) or 'before_any_other'"):
+        load_study(study)
+    study.write_text(STUDY.format(extra='[mortality]\nraster = "mortality.tif"\ndeath_per_resistance = 0.1'))
+    with pytest.raises(ConfigError, match=r"\[mortality\] has both 'raster' and 'death_per_resistance'"):
+        load_study(study)
 
 
 def test_study_reports_unreachable_cells(study_dir):

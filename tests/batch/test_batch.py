@@ -125,6 +125,10 @@ def test_invalid_study_is_reported_and_the_rest_run(landscape, tmp_path):
     write_study(good, study_text(folder="good", extra="per_pair = true"))
     assert run_batch([good], workers=0, summary=tmp_path / "s.csv", stream=stream)[0].status == "done"
     assert run_batch([good], workers=0, summary=tmp_path / "s.csv", stream=stream)[0].status == "skipped"
+    # an output deleted since the last run: not up to date
+    (landscape / "good" / "current_density.tif").unlink()
+    assert run_batch([good], workers=0, summary=tmp_path / "s.csv", stream=stream)[0].status == "done"
+    assert (landscape / "good" / "current_density.tif").is_file()
 
 
 def test_two_runs_sharing_an_output_folder_are_refused(landscape, tmp_path):

@@ -29,3 +29,18 @@ def test_every_key_with_its_default_and_unit_is_documented():
                 assert key.unit in text
     for name in ANALYSES:
         assert "```toml\n[landscape]" in text and f"\n[analyses.{name}]\n" in text
+
+
+def test_every_analysis_example_validates(tmp_path):
+    import re
+    import tomllib
+
+    from landflow.study.schema import validate_section
+
+    for name, step in ANALYSES.items():
+        block = re.search(rf"```toml\n(\[landscape\][^`]*?\n\[analyses\.{name}\]\n[^`]*?)```", render()).group(1)
+        table = tomllib.loads(block)["analyses"][name]
+        for value in table.values():     # named input files must exist for the path check
+            if isinstance(value, str) and "." in value:
+                (tmp_path / value).touch()
+        validate_section(table, step.SETTINGS, f"analyses.{name}", tmp_path, "example")

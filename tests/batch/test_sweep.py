@@ -52,6 +52,10 @@ def test_a_list_of_rasters(landscape):
      r"sweep run 'resistance-missing'.*names 'missing.tif', which does not exist"),
     ('"output.folder" = ["a", "b"]\n', r"cannot vary 'output.folder'"),
     ('"landscape.neighbours" = [4, 4]\n', r"lists a value twice"),
+    ('"landscape.neighbours" = []\n', r"'sweep\.landscape\.neighbours' must be a non-empty list of values to try, "
+                                      r"got an empty list\. List the values, or remove the key from \[sweep\]"),
+    ("", r"sw\.toml: \[sweep\] must be a table of setting = \[values\], for example "
+         r"\"landscape\.neighbours\" = \[4, 8\]; got \{\}\."),
 ])
 def test_bad_sweeps(landscape, sweep, message):
     with pytest.raises(ConfigError, match=message):

@@ -1,5 +1,6 @@
 """The what-if scenario equals a full fresh run on the changed raster, through the study runner."""
 
+import json
 import subprocess
 import sys
 
@@ -77,3 +78,10 @@ def test_current_change_equals_fresh_minus_present(runs):
     assert np.isfinite(change).all()          # no cell is outside on both sides
     np.testing.assert_allclose(change, expected, rtol=1e-5, atol=1e-5 * np.abs(present).max())
     assert change[10, 3] == pytest.approx(-present[10, 3], rel=1e-5)
+
+
+def test_manifest_records_the_changed_landscapes_solves(runs):
+    whatif = json.loads((runs / "whatif" / "manifest.json").read_text(encoding="utf-8"))["solvers"]
+    fresh = json.loads((runs / "fresh" / "manifest.json").read_text(encoding="utf-8"))["solvers"]
+    assert fresh and len(whatif) == 2 * len(fresh)        # the present landscape's solves and the changed one's
+    assert all(s["worst_relative_residual"] < 1e-6 for s in whatif)

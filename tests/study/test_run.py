@@ -8,6 +8,7 @@ import pytest
 import rasterio
 
 import landflow as lf
+from landflow.study.config import load_study
 from landflow.io.rasters import read_grid
 from landflow.io.sites import read_patch_points
 
@@ -62,3 +63,5 @@ def test_strength_column_needs_points(study):
     with pytest.raises(lf.ConfigError, match=r"'patches\.strength_column' only applies to patch points; with a "
                                              r"patch raster use 'patches\.strength_raster'"):
         lf.run_study(study(patches='raster = "patches.tif"\nstrength_column = "adults"'))
+    with pytest.raises(lf.ConfigError, match=r"'patches\.strength_column' only applies to patch points"):
+        load_study(study(patches='raster = "patches.tif"\nstrength_column = "adults"'))   # before any input is read

@@ -1,32 +1,31 @@
 """Study step: probability of reaching one patch before another (or before any other patch)."""
 
 from ...analyses.absorption import hitting_probability
-from ...errors import ConfigError
 from ..schema import Key, Section
 from ._walk_settings import patch_id_list, patch_ids_or_all, patch_pair_list
 
 NAME = "hitting_probability"
 SETTINGS = Section({
     "pairs": Key(list, [], "pairs [A, B] of patch ids; for each, a map of P(reach A before B) "
-                           "(hitting_probability_A_before_B.tif)", check=patch_pair_list),
+                           "(hitting_probability_A_before_B.tif)", check=patch_pair_list, example=[[1, 2]]),
     "before_any_other": Key(list, [], "patch ids A; for each, a map of P(reach A before any other patch) "
-                                      "(hitting_probability_A_before_any_other.tif)", check=patch_id_list),
+                                      "(hitting_probability_A_before_any_other.tif)", check=patch_id_list,
+                            example=[1]),
 }, "Hitting probability: for every cell, the chance that a walker starting there reaches patch A before "
-   "patch B (other patches do not stop it), or before any other patch. Uses [mortality] when given.")
+   "patch B (other patches do not stop it), or before any other patch. Give 'pairs', 'before_any_other' or "
+   "both. Uses [mortality] when given.",
+    check=lambda s: None if s["pairs"] or s["before_any_other"] else
+    "needs 'pairs' (such as [[1, 2]]) or 'before_any_other' (such as [1])")
 
 
 def check(ctx, settings):
-    pairs, singles = settings["pairs"], settings["before_any_other"]
-    if not pairs and not singles:
-        raise ConfigError(f"{ctx.study.path or 'study'}: [analyses.{NAME}] needs 'pairs' (such as [[1, 2]]) or "
-                          "'before_any_other' (such as [1]).")
-    patch_ids_or_all(ctx, [p for pair in pairs for p in pair], f"analyses.{NAME}.pairs")
-    patch_ids_or_all(ctx, singles, f"analyses.{NAME}.before_any_other")
-    return pairs, singles
+    """Every named patch exists, checked before any step solves."""
+    patch_ids_or_all(ctx, [p for pair in settings["pairs"] for p in pair], f"analyses.{NAME}.pairs")
+    patch_ids_or_all(ctx, settings["before_any_other"], f"analyses.{NAME}.before_any_other")
 
 
 def run(ctx, settings):
-    pairs, singles = check(ctx, settings)
+    pairs, singles = settings["pairs"], settings["before_any_other"]
     walk = ctx.absorbing_walk
     units = "probability (0 to 1)"
     for a, b in pairs:
