@@ -4,7 +4,7 @@ import numpy as np
 
 from ...analyses.absorption import absorption_probability, most_likely_destination
 from ..schema import Key, Section
-from ._walk_settings import patch_id_list, patch_ids_or_all
+from ._patch_settings import patch_id_list, patch_ids_or_all
 
 NAME = "absorption_probability"
 SETTINGS = Section({

@@ -5,7 +5,7 @@ import pandas as pd
 
 from ...analyses.priority import corridor, corridor_cells_table
 from ..schema import Key, Section
-from ._pairs import check_pair_list, resolve_pairs, share_in_unit_interval
+from ._patch_settings import check_pair_list, resolve_pairs, share_in_unit_interval
 
 NAME = "corridor_maps"
 SETTINGS = Section({

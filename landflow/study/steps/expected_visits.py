@@ -4,7 +4,7 @@ import numpy as np
 
 from ...analyses.absorption import expected_visits, node_source
 from ..schema import Key, Section
-from ._walk_settings import patch_id_list, patch_ids_or_all
+from ._patch_settings import patch_id_list, patch_ids_or_all
 
 NAME = "expected_visits"
 SETTINGS = Section({

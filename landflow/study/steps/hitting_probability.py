@@ -2,12 +2,12 @@
 
 from ...analyses.absorption import hitting_probability
 from ..schema import Key, Section
-from ._walk_settings import patch_id_list, patch_ids_or_all, patch_pair_list
+from ._patch_settings import check_pair_list, patch_id_list, patch_ids_or_all
 
 NAME = "hitting_probability"
 SETTINGS = Section({
     "pairs": Key(list, [], "pairs [A, B] of patch ids; for each, a map of P(reach A before B) "
-                           "(hitting_probability_A_before_B.tif)", check=patch_pair_list, example=[[1, 2]]),
+                           "(hitting_probability_A_before_B.tif)", check=check_pair_list, example=[[1, 2]]),
     "before_any_other": Key(list, [], "patch ids A; for each, a map of P(reach A before any other patch) "
                                       "(hitting_probability_A_before_any_other.tif)", check=patch_id_list,
                             example=[1]),

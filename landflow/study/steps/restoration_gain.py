@@ -6,7 +6,7 @@ import pandas as pd
 from ...analyses.priority import check_connected_pairs, objective_weights, restoration_gain
 from ...errors import ConfigError, InputError
 from ..schema import Key, Section
-from ._pairs import check_pair_list, resolve_pairs
+from ._patch_settings import check_pair_list, resolve_pairs
 
 NAME = "restoration_gain"
 SETTINGS = Section({

@@ -6,7 +6,7 @@ import pandas as pd
 from ...analyses.absorption import arrival_table, release_expected_steps
 from ...analyses.simulate import sample_table, simulate_walks
 from ..schema import Key, Section
-from ._walk_settings import patch_id_list, patch_ids_or_all
+from ._patch_settings import patch_id_list, patch_ids_or_all
 
 
 def _at_least(n):
