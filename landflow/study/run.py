@@ -127,6 +127,16 @@ class RunContext:
                                   progress=log.info)
 
     @cached_property
+    def least_cost(self):
+        """Least-cost distances and routes between patches on the landscape's cell edges, shared by every step."""
+        from ..analyses.least_cost import least_cost
+        from ..graph import cell_edges
+        land = self.study.settings["landscape"]
+        with self.timed("least-cost search"):
+            edges = cell_edges(self.grid, kind=self.kind, neighbours=land["neighbours"], edge_rule=land["edge_rule"])
+            return least_cost(self.graph, edges)
+
+    @cached_property
     def mortality(self):
         """Per-cell death probability per step from [mortality] (checked), or None."""
         spec = self.study.settings.get("mortality") or {}

@@ -3,9 +3,7 @@
 import numpy as np
 
 from ...analyses.current import pair_weights
-from ...analyses.least_cost import least_cost
 from ...analyses.priority import corridor_ranking
-from ...graph import cell_edges
 from ..schema import Key, Section
 
 NAME = "corridor_ranking"
@@ -23,9 +21,7 @@ def run(ctx, settings):
     weights = pair_weights(voltages, strength)
     distance = None
     if settings["least_cost"]:
-        land = ctx.study.settings["landscape"]
-        edges = cell_edges(ctx.grid, kind=ctx.kind, neighbours=land["neighbours"], edge_rule=land["edge_rule"])
-        distance = least_cost(ctx.graph, edges).matrix
+        distance = ctx.least_cost.matrix
     table = corridor_ranking(voltages, weights, least_cost=distance)
     ctx.write_table("corridor_ranking.csv", table,
                     description="one row per patch pair, ranked by the drop in overall connectivity if the "

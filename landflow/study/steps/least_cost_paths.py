@@ -2,9 +2,8 @@
 
 import numpy as np
 
-from ...analyses.least_cost import least_cost, least_cost_table
+from ...analyses.least_cost import least_cost_table
 from ...analyses.resistance import effective_resistance
-from ...graph import cell_edges
 from ..schema import Key, Section
 
 NAME = "least_cost_paths"
@@ -15,10 +14,8 @@ SETTINGS = Section({
 
 
 def run(ctx, settings):
-    land = ctx.study.settings["landscape"]
     graph = ctx.graph
-    edges = cell_edges(ctx.grid, kind=ctx.kind, neighbours=land["neighbours"], edge_rule=land["edge_rule"])
-    result = least_cost(graph, edges)
+    result = ctx.least_cost
     resistance = effective_resistance(ctx.voltages)
     ctx.write_table("least_cost_distance.csv", least_cost_table(result, resistance),
                     description="least-cost distance, route length and cells of the cheapest route of every "
