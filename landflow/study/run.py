@@ -52,6 +52,7 @@ class RunContext:
         self.warnings = []
         self.timings = {}
         self.inputs = {}
+        self._aligned = {}
         self.summary = {}
         self.solvers = []
         self._load()
@@ -90,8 +91,11 @@ class RunContext:
         return path
 
     def read_aligned(self, path, what):
-        """Read another raster that must lie on the landscape's grid (mortality, ...)."""
-        return read_aligned(self._input(path), self.grid, what=what)
+        """Read another raster that must lie on the landscape's grid (mortality, ...), once per run."""
+        key = str(path)
+        if key not in self._aligned:
+            self._aligned[key] = read_aligned(self._input(path), self.grid, what=what)
+        return self._aligned[key]
 
     def _check_patches(self):
         wanted = self.patches.ids
