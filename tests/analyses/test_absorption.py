@@ -272,6 +272,9 @@ def test_study_bad_requests(study_dir):
     write_tif(study_dir / "neg.tif", np.full((6, 7), -1.0))
     with pytest.raises(InputError, match=r"neg\.tif: 39 landscape cell\(s\) have a crossing time that is negative"):
         lf.run_study(study)
+    # 'landflow check' never solves: the crossing times are checked before any solve
+    with pytest.raises(InputError, match=r"neg\.tif: 39 landscape cell\(s\) have a crossing time that is negative"):
+        lf.check_study(study)
 
 
 @pytest.mark.parametrize("old, new, error", [

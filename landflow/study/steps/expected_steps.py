@@ -14,13 +14,23 @@ SETTINGS = Section({
    "(expected_steps_from_patch.csv).")
 
 
+def _crossing_time(ctx, settings):
+    """Per-node crossing time from the study's raster (checked), or None."""
+    if settings["crossing_time"] is None:
+        return None
+    grid = ctx.read_aligned(settings["crossing_time"], "crossing-time raster")
+    return node_crossing_time(ctx.graph, np.where(grid.mask, grid.values, np.nan),
+                              source=str(settings["crossing_time"]), where=ctx.grid.where)
+
+
+def check(ctx, settings):
+    """The crossing-time raster lies on the grid and holds no negative time, checked before any solve."""
+    _crossing_time(ctx, settings)
+
+
 def run(ctx, settings):
     walk = ctx.absorbing_walk
-    tau = None
-    if settings["crossing_time"] is not None:
-        grid = ctx.read_aligned(settings["crossing_time"], "crossing-time raster")
-        tau = node_crossing_time(ctx.graph, np.where(grid.mask, grid.values, np.nan),
-                                 source=str(settings["crossing_time"]), where=ctx.grid.where)
+    tau = _crossing_time(ctx, settings)
     steps = expected_steps(walk)
     t = np.where(np.isfinite(steps), steps, np.nan)
     cells = ctx.write_raster("expected_steps.tif", t, units="steps",
