@@ -97,6 +97,15 @@ class RunContext:
             self._aligned[key] = read_aligned(self._input(path), self.grid, what=what)
         return self._aligned[key]
 
+    def read_landscape_like(self, path, key):
+        """Another landscape raster on the grid (a what-if), read as the study's own landscape is read:
+        of the same kind, and through the same transform when the landscape is a suitability raster."""
+        land = self.study.settings["landscape"]
+        from_suitability = land.get("suitability") is not None
+        what = f"changed {'suitability' if from_suitability else self.kind} raster ('{key}')"
+        grid = self.read_aligned(path, what)
+        return _grid_from_suitability(grid, land) if from_suitability else grid
+
     def _check_patches(self):
         wanted = self.patches.ids
         found = self.graph.patch_ids

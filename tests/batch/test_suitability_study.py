@@ -28,6 +28,27 @@ def test_suitability_study_equals_resistance_study(landscape):
     assert "resistance_from_suitability.tif" not in [o["file"] for o in b["outputs"]]
 
 
+def test_what_if_on_a_suitability_landscape_goes_through_the_transform(landscape):
+    # a changed suitability raster is read as suitability: the same map changes nothing, and a change
+    # equals a fresh run on the changed map (both through the Keeley, Beier & Gagnon 2016 transform)
+    with rasterio.open(landscape / "suitability.tif") as src:
+        h = src.read(1)
+    better = h.copy()
+    better[10:14, 10:20] = 1.0                       # restored habitat
+    write_raster(landscape / "better.tif", better)
+    for changed, folder in (("suitability.tif", "same"), ("better.tif", "changed")):
+        extra = f'[analyses.scenario_change]\nchanged_landscape = "{changed}"'
+        run_study(write_study(landscape / f"{folder}.toml", study_text(NEGEXP, folder=folder, extra=extra)))
+    same = pd.read_csv(landscape / "same" / "scenario_change.csv")
+    np.testing.assert_array_equal(same["resistance_change"], 0.0)
+    run_study(write_study(landscape / "fresh.toml", study_text(NEGEXP.replace("suitability.tif", "better.tif"),
+                                                               folder="fresh")))
+    changed = pd.read_csv(landscape / "changed" / "scenario_change.csv")
+    fresh = pd.read_csv(landscape / "fresh" / "effective_resistance.csv")
+    np.testing.assert_allclose(changed["resistance_after"], fresh["resistance"], rtol=1e-10)
+    assert (changed["resistance_change"] < 0).any()
+
+
 @pytest.mark.parametrize("landscape_keys, message", [
     ('suitability = "suitability.tif"\nsuitability_transform = "negative_exponential"',
      r"needs 'suitability_shape'"),

@@ -13,8 +13,9 @@ log = logging.getLogger("landflow")
 
 NAME = "scenario_change"
 SETTINGS = Section({
-    "changed_landscape": Key(str, REQUIRED, "the landscape raster after the planned change (same kind, "
-                                            "resistance or conductance, and same grid as [landscape])",
+    "changed_landscape": Key(str, REQUIRED, "the landscape raster after the planned change: same kind "
+                                            "as [landscape] (resistance, conductance, or suitability, which "
+                                            "goes through the same transform) and the same grid",
                              path="input"),
     "weight_by_strength": Key(bool, True, "weight pairs in the cumulative current by the product of the "
                                           "patches' strengths (when strengths are given)"),
@@ -27,7 +28,7 @@ _KEY = "analyses.scenario_change.changed_landscape"
 
 def _changed_grid(ctx, settings):
     try:
-        return ctx.read_aligned(settings["changed_landscape"], f"changed {ctx.kind} raster ('{_KEY}')")
+        return ctx.read_landscape_like(settings["changed_landscape"], _KEY)
     except InputError as exc:
         raise InputError(f"{ctx.study.path or 'study'}: '{_KEY}': {exc}") from None
 
