@@ -76,7 +76,7 @@ def write_report(path, manifest, caution):
         f"- {land['cells']:,} cells in the landscape, {len(land['patches'])} patches, {land['pieces']} connected piece(s)",
     ]
     for solver in manifest["solvers"]:
-        lines.append(f"- solver: {solver['method']}, {solver['unknowns']:,} unknowns, "
+        lines.append(f"- solver for {solver.get('purpose', 'the run')}: {solver['method']}, {solver['unknowns']:,} unknowns, "
                      f"{solver['right_hand_sides']} right-hand sides, worst relative residual "
                      f"{solver['worst_relative_residual']:.1e}")
     if manifest.get("summary"):

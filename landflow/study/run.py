@@ -177,9 +177,13 @@ class RunContext:
             walk = absorbing_walk(self.graph, mortality, method=solver["method"], tolerance=solver["tolerance"],
                                   source=str(spec.get("raster") or "mortality"), where=self.grid.where)
             absorption_probability(walk)  # solve the patch and death columns now, inside the timer
-        if walk.solver is not None:
-            self.solvers.append(walk.solver)
+        self.add_solvers("absorbing walk (every patch absorbing)", [walk.solver])
         return walk
+
+    def add_solvers(self, purpose, solvers):
+        """Record solvers a step prepared, with what they were for, for the manifest (each once)."""
+        known = {id(s) for _, s in self.solvers}
+        self.solvers += [(purpose, s) for s in solvers if s is not None and id(s) not in known]
 
     @contextmanager
     def forward_warnings(self):
@@ -385,8 +389,9 @@ def _manifest(ctx, seconds):
         except metadata.PackageNotFoundError:
             pass
     graph = ctx.graph
-    solvers = [s.record() for s in ctx.voltages.solvers] if "voltages" in ctx.__dict__ else []
-    solvers += [s.record() for s in ctx.solvers]
+    shared = [("patch voltages (effective resistance, current)", s) for s in ctx.voltages.solvers] \
+        if "voltages" in ctx.__dict__ else []
+    solvers = [{"purpose": purpose, **s.record()} for purpose, s in shared + ctx.solvers]
     return {
         "landflow_version": __version__,
         "study_file": str(ctx.study.path) if ctx.study.path else None,

@@ -85,3 +85,6 @@ def test_manifest_records_the_changed_landscapes_solves(runs):
     fresh = json.loads((runs / "fresh" / "manifest.json").read_text(encoding="utf-8"))["solvers"]
     assert fresh and len(whatif) == 2 * len(fresh)        # the present landscape's solves and the changed one's
     assert all(s["worst_relative_residual"] < 1e-6 for s in whatif)
+    purposes = [s["purpose"] for s in whatif]
+    assert purposes.count("patch voltages of the changed landscape") == len(fresh)
+    assert purposes.count("patch voltages (effective resistance, current)") == len(fresh)

@@ -44,5 +44,5 @@ def run(ctx, settings):
                                              "before any other patch")
         ctx.quicklook(f"hitting_probability_{a}_before_any_other.png", cells, units=units, log_scale=False,
                       title=f"Probability of reaching patch {a} before any other patch")
-    ctx.solvers.extend(other.solver for other in walk.related.values()
-                       if other.solver is not None and other.solver not in ctx.solvers)
+    ctx.add_solvers("hitting probability (two patches absorbing)",
+                    [other.solver for other in walk.related.values()])

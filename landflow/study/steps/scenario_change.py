@@ -47,7 +47,7 @@ def run(ctx, settings):
     except InputError as exc:
         raise InputError(f"{ctx.study.path or 'study'}: '{_KEY}': {exc}") from None
     after = patch_voltages(graph, method=solver["method"], tolerance=solver["tolerance"], progress=log.info)
-    ctx.solvers.extend(after.solvers)           # the manifest lists these solves beside the shared ones
+    ctx.add_solvers("patch voltages of the changed landscape", after.solvers)
     strength = ctx.strength if settings["weight_by_strength"] else None
     before = ctx.voltages
     table, change, totals = scenario_change(before, after, pair_weights(before, strength),
@@ -60,12 +60,7 @@ def run(ctx, settings):
                      description="change of the cumulative current through each cell caused by the change")
     ctx.quicklook("scenario_current_change.png", change, title="Change of cumulative current",
                   units="A", log_scale=False)
-    records = [s.record() for s in after.solvers]      # one per piece of the landscape holding two patches
-    worst = max(records, key=lambda r: r["worst_relative_residual"]) if records else {}
     before_c, after_c = totals["connectivity_before"], totals["connectivity_after"]
     ctx.summary["scenario: overall connectivity before / after"] = (
         f"{before_c:.4g} / {after_c:.4g} ({100 * (after_c - before_c) / before_c:+.2f}%)"
         if before_c > 0 else f"{before_c:.4g} / {after_c:.4g}")
-    if worst:
-        ctx.summary["scenario solver"] = (f"{worst['method']}, worst relative residual "
-                                          f"{worst['worst_relative_residual']:.1e}")
