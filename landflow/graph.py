@@ -112,6 +112,21 @@ class CellGraph:
     def n_patches(self):
         return len(self.patch_ids)
 
+    @property
+    def n_cells(self):
+        """Cells inside the landscape (patch cells included)."""
+        return int((self.node_of_cell >= 0).sum())
+
+    @property
+    def n_edges(self):
+        """Undirected edges between nodes (the conductance matrix is symmetric with a zero diagonal)."""
+        return self.conductance.nnz // 2
+
+    @property
+    def n_pieces(self):
+        """Connected pieces of the landscape."""
+        return int(self.components.max()) + 1
+
     @cached_property
     def total_conductance(self):
         """C_x: the sum of conductances of the edges at each node."""

@@ -60,10 +60,10 @@ class RunContext:
     # -- inputs ---------------------------------------------------------------
     def _load(self):
         land = self.study.settings["landscape"]
-        kind = "resistance" if land["resistance"] is not None else "conductance"
+        self.from_suitability = land["suitability"] is not None
+        kind = "conductance" if land["conductance"] is not None else "resistance"
         with self.timed("read inputs"):
-            if land.get("suitability") is not None:
-                kind = "resistance"
+            if self.from_suitability:
                 self.grid = _grid_from_suitability(read_grid(self._input(land["suitability"]),
                                                              what="suitability raster"), land)
             else:
@@ -100,11 +100,9 @@ class RunContext:
     def read_landscape_like(self, path, key):
         """Another landscape raster on the grid (a what-if), read as the study's own landscape is read:
         of the same kind, and through the same transform when the landscape is a suitability raster."""
-        land = self.study.settings["landscape"]
-        from_suitability = land.get("suitability") is not None
-        what = f"changed {'suitability' if from_suitability else self.kind} raster ('{key}')"
+        what = f"changed {'suitability' if self.from_suitability else self.kind} raster ('{key}')"
         grid = self.read_aligned(path, what)
-        return _grid_from_suitability(grid, land) if from_suitability else grid
+        return _grid_from_suitability(grid, self.study.settings["landscape"]) if self.from_suitability else grid
 
     def _check_patches(self):
         wanted = self.patches.ids
@@ -274,8 +272,8 @@ def check_study(study):
     _check_writable(study)
     _check_steps(ctx)
     graph = ctx.graph
-    return {"cells": int((graph.node_of_cell >= 0).sum()), "nodes": graph.n_nodes,
-            "patches": graph.n_patches, "pieces": int(graph.components.max()) + 1,
+    return {"cells": graph.n_cells, "nodes": graph.n_nodes,
+            "patches": graph.n_patches, "pieces": graph.n_pieces,
             "analyses": list(study.analyses), "warnings": ctx.warnings}
 
 
@@ -339,7 +337,7 @@ def run_study(study):
     try:
         ctx = RunContext(study, tmp)
         _check_steps(ctx)
-        if study.settings["landscape"].get("suitability") is not None:
+        if ctx.from_suitability:
             ctx.write_raster("resistance_from_suitability.tif", np.where(ctx.grid.mask, ctx.grid.values, np.nan),
                              per_node=False, units="resistance per map unit",
                              description="resistance made from the suitability raster by the study's transform")
@@ -404,9 +402,8 @@ def _manifest(ctx, seconds):
         "landscape": {"rows": graph.shape[0], "cols": graph.shape[1],
                       "cell_size": list(ctx.grid.cell_size),
                       "crs": ctx.grid.crs.to_string() if ctx.grid.crs else None,
-                      "cells": int((graph.node_of_cell >= 0).sum()), "nodes": graph.n_nodes,
-                      "edges": int(graph.edges[0].size), "patches": [int(p) for p in graph.patch_ids],
-                      "pieces": int(graph.components.max()) + 1},
+                      "cells": graph.n_cells, "nodes": graph.n_nodes, "edges": graph.n_edges,
+                      "patches": [int(p) for p in graph.patch_ids], "pieces": graph.n_pieces},
         "solvers": solvers,
         "outputs": ctx.outputs,
         "summary": ctx.summary,
