@@ -9,7 +9,7 @@ Run by hand, not in CI:
 Cases (``--case``, repeatable):
 
 * ``1000``: 1000 x 1000 cells, 8 neighbours, 20 patches; all-pairs effective
-  resistance plus cumulative current, GeoTIFF to GeoTIFF through
+  resistance plus current density, GeoTIFF to GeoTIFF through
   :func:`landflow.run_study`.
 * ``1000k50``: the same grid with 50 patches (1,225 pairs).
 * ``2000``: 2000 x 2000 cells and 50 patches.

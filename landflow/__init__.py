@@ -17,7 +17,7 @@ __version__ = "0.1.0"
 from .analyses.absorption import (AbsorbingWalk, StrandedWalkWarning, absorbing_walk, absorption_probability,
                                   arrival_table, expected_steps, expected_visits, hitting_probability,
                                   mortality_from_resistance, most_likely_destination, release_expected_steps)
-from .analyses.current import cumulative_current, edge_current, pair_current, pair_weights
+from .analyses.current import current_density, edge_current, pair_current, pair_weights
 from .analyses.least_cost import LeastCost, least_cost, least_cost_table
 from .analyses.priority import (connectivity, corridor, corridor_ranking, link_conductance, objective_weights,
                                 restoration_gain, scenario_change)
@@ -77,7 +77,7 @@ def write_geotiff(path, array, grid, **profile):
 __all__ = [
     "__version__", "Grid", "CellGraph", "build_graph", "landscape_mask", "Solver", "factorize",
     "PatchVoltages", "patch_voltages", "effective_resistance", "resistance_table",
-    "edge_current", "pair_current", "pair_weights", "cumulative_current",
+    "edge_current", "pair_current", "pair_weights", "current_density",
     "AbsorbingWalk", "absorbing_walk", "hitting_probability", "absorption_probability", "most_likely_destination",
     "arrival_table", "expected_steps", "release_expected_steps", "expected_visits", "mortality_from_resistance",
     "simulate_walks", "WalkSample", "StrandedWalkWarning",

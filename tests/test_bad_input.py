@@ -134,31 +134,31 @@ def test_patch_raster_with_fractional_labels(study, tif):
         lf.check_study(study(patches='raster = "fractional.tif"'))
 
 
-def test_negative_strength_raster(study, tif):
-    strength = np.zeros((6, 8), dtype="float32")
-    strength[1, 1] = -3.0
-    tif("strength.tif", strength)
-    with pytest.raises(lf.InputError, match=r"strength\.tif: strength must be >= 0; first negative at row 1, col 1"):
-        lf.check_study(study(patches='raster = "patches.tif"\nstrength_raster = "strength.tif"'))
+def test_negative_weight_raster(study, tif):
+    weight = np.zeros((6, 8), dtype="float32")
+    weight[1, 1] = -3.0
+    tif("weight.tif", weight)
+    with pytest.raises(lf.InputError, match=r"weight\.tif: weight must be >= 0; first negative at row 1, col 1"):
+        lf.check_study(study(patches='raster = "patches.tif"\nweight_raster = "weight.tif"'))
 
 
-def test_strength_raster_with_nan_inside_its_valid_area(study, tif):
-    strength = np.zeros((6, 8), dtype="float32")
-    strength[2, 3] = np.nan                                 # the raster declares -9999 as nodata, not NaN
-    tif("strength.tif", strength, nodata=NODATA)
-    with pytest.raises(lf.InputError, match=r"strength\.tif: strength must be >= 0; first not finite at row 2, col 3 "
-                                            r".*Set cells without a strength to 0 or to the raster's nodata value"):
-        lf.check_study(study(patches='raster = "patches.tif"\nstrength_raster = "strength.tif"'))
+def test_weight_raster_with_nan_inside_its_valid_area(study, tif):
+    weight = np.zeros((6, 8), dtype="float32")
+    weight[2, 3] = np.nan                                 # the raster declares -9999 as nodata, not NaN
+    tif("weight.tif", weight, nodata=NODATA)
+    with pytest.raises(lf.InputError, match=r"weight\.tif: weight must be >= 0; first not finite at row 2, col 3 "
+                                            r".*Set cells without a weight to 0 or to the raster's nodata value"):
+        lf.check_study(study(patches='raster = "patches.tif"\nweight_raster = "weight.tif"'))
 
 
-def test_negative_strength_in_points(tmp_path, tif, centre):
+def test_negative_weight_in_points(tmp_path, tif, centre):
     grid = _resistance(tif)
     path = tmp_path / "points.csv"
     pd.DataFrame([[*centre(1, 1), 1, 2.0], [*centre(2, 2), 2, -1.5]],
                  columns=["x", "y", "id", "size"]).to_csv(path, index=False)
-    with pytest.raises(lf.InputError, match=r"points\.csv, line 3: 'size' is -1\.5; a patch strength must be "
+    with pytest.raises(lf.InputError, match=r"points\.csv, line 3: 'size' is -1\.5; a patch weight must be "
                                             r"a finite number >= 0"):
-        read_patch_points(path, grid, strength_column="size")
+        read_patch_points(path, grid, weight_column="size")
 
 
 def _points(tmp_path, rows):
@@ -263,11 +263,23 @@ def test_wrong_value_types_and_values(study, landscape, extra, message):
 def test_wrong_types_in_output_and_analyses(study):
     with pytest.raises(lf.ConfigError, match=r"'output\.quicklooks' must be true or false, got int 1"):
         load_study(study(output="quicklooks = 1"))
-    with pytest.raises(lf.ConfigError, match=r"'analyses\.current_density\.per_pair' must be true or false, got str"):
-        load_study(study(analyses='[analyses.current_density]\nper_pair = "yes"\n'))
+    with pytest.raises(lf.ConfigError, match=r"'analyses\.current_density\.pair_current_maps' must be true or false, got str"):
+        load_study(study(analyses='[analyses.current_density]\npair_current_maps = "yes"\n'))
     with pytest.raises(lf.ConfigError, match=r"no analyses requested\. Add a table such as "
                                              r"\[analyses\.effective_resistance\]"):
         load_study(study(analyses=""))
+
+
+@pytest.mark.parametrize("part, text, old, new", [
+    ("patches", 'raster = "patches.tif"\nstrength_raster = "patches.tif"', "strength_raster", "weight_raster"),
+    ("analyses", "[analyses.current_density]\nper_pair = true", "per_pair", "pair_current_maps"),
+    ("analyses", "[analyses.current_density]\nvoltage_per_pair = true", "voltage_per_pair", "pair_voltage_maps"),
+    ("analyses", "[analyses.current_density]\nweight_by_strength = true", "weight_by_strength", "use_patch_weights"),
+    ("analyses", "[analyses.least_cost_paths]\nper_pair = true", "per_pair", "pair_route_maps"),
+])
+def test_keys_of_earlier_releases_name_their_new_key(study, part, text, old, new):
+    with pytest.raises(lf.ConfigError, match=rf"the key '{old}' in \[.*\] is now called '{new}'; rename it"):
+        load_study(study(**{part: text}))
 
 
 def test_not_toml(tmp_path):

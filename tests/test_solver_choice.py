@@ -150,23 +150,23 @@ class TestCumulativeCurrentFastSum:
         graph = lognormal_graph(25, 30, [(2, 3), (20, 25), (12, 14), (3, 27), (22, 4)], seed=11)
         return lf.patch_voltages(graph, method="superlu")
 
-    @pytest.mark.parametrize("strength", [None, [1.0, 2.0, 0.5, 3.0, 1.5]])
-    def test_equals_the_pairwise_sum(self, strength, monkeypatch):
+    @pytest.mark.parametrize("patch_weight", [None, [1.0, 2.0, 0.5, 3.0, 1.5]])
+    def test_equals_the_pairwise_sum(self, patch_weight, monkeypatch):
         voltages = self._voltages()
-        weights = lf.pair_weights(voltages, None if strength is None else np.array(strength))
-        fast = lf.cumulative_current(voltages, weights)
+        weights = lf.pair_weights(voltages, None if patch_weight is None else np.array(patch_weight))
+        fast = lf.current_density(voltages, weights)
         monkeypatch.setattr(current_module, "_product_groups", lambda *args: None)
-        slow = lf.cumulative_current(voltages, weights)
+        slow = lf.current_density(voltages, weights)
         np.testing.assert_allclose(fast, slow, rtol=1e-12, atol=1e-14)
 
     def test_general_weights_fall_back(self):
         voltages = self._voltages()
         weights = lf.pair_weights(voltages)
-        weights[0, 1] = weights[1, 0] = 7.0                     # not a product of strengths
+        weights[0, 1] = weights[1, 0] = 7.0                     # not a product of patch weights
         assert current_module._product_groups(voltages.component_of_patch, weights) is None
         expected = sum(weights[a, b] * lf.pair_current(voltages, a, b)
                        for a, b in itertools.combinations(range(5), 2))
-        np.testing.assert_allclose(lf.cumulative_current(voltages, weights), expected, rtol=1e-10)
+        np.testing.assert_allclose(lf.current_density(voltages, weights), expected, rtol=1e-10)
 
     def test_against_networkx_current_flow(self):
         # networkx.edge_current_flow_betweenness_centrality_subset (normalized=False) gives, per edge,
@@ -181,7 +181,7 @@ class TestCumulativeCurrentFastSum:
         for p, (r, c) in enumerate(sites, start=1):
             labels[r, c] = p
         graph = lf.build_graph(lf.Grid.from_array(resistance), labels, neighbours=4)
-        flow = lf.cumulative_current(lf.patch_voltages(graph, method="superlu"))
+        flow = lf.current_density(lf.patch_voltages(graph, method="superlu"))
         g = nx.Graph()
         for r in range(rows):
             for c in range(cols):

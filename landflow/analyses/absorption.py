@@ -187,21 +187,21 @@ def node_crossing_time(graph, crossing_time, *, source="crossing time", where=No
     return tau
 
 
-def node_source(graph, source_strength, *, source="source strength", where=None):
-    """Per-node release strength from a per-cell raster: cell values, summed over each patch's cells.
+def node_source(graph, release_weight, *, source="release weight", where=None):
+    """Per-node release weight from a per-cell raster: cell values, summed over each patch's cells.
 
     Raises
     ------
     InputError
         Wrong shape, a landscape cell negative or not finite, or nothing released.
     """
-    values = _on_grid(source_strength, graph, "source-strength raster", source)
+    values = _on_grid(release_weight, graph, "release-weight raster", source)
     inside = graph.node_of_cell >= 0
-    _require_nonnegative(values, inside, "a source strength", source, where,
+    _require_nonnegative(values, inside, "a release weight", source, where,
                          "Give every landscape cell a value >= 0 (0 = no walkers released there).")
     s = np.bincount(graph.node_of_cell[inside], weights=values[inside], minlength=graph.n_nodes)
     if not s.sum() > 0:
-        raise InputError(f"{source}: the source strength is 0 on every landscape cell, so no walker is released. "
+        raise InputError(f"{source}: the release weight is 0 on every landscape cell, so no walker is released. "
                          "Give some cells a positive value.")
     return s
 
@@ -715,7 +715,7 @@ def expected_visits(walk, *, release_patch=None, source=None):
     k = graph.n_patches
     if (release_patch is None) == (source is None):
         raise InputError("expected_visits needs exactly one of release_patch (a patch id) or source "
-                         "(a per-node source strength).")
+                         "(a per-node release weight).")
     if release_patch is not None:
         s = np.zeros(graph.n_nodes)
         s[walk.patch_index(release_patch, "release patch")] = 1.0

@@ -6,7 +6,7 @@ import numpy as np
 
 from ..errors import InputError
 
-__all__ = ["edge_current", "pair_current", "cumulative_current", "pair_weights"]
+__all__ = ["edge_current", "pair_current", "current_density", "pair_weights"]
 
 #: Sets the edges handled at once when summing over pairs: EDGE_BLOCK * 16 / k
 #: edges, so each (edges x k) temporary holds about 4 M numbers (32 MB) whatever k.
@@ -45,16 +45,16 @@ def pair_current(voltages, a, b):
     return flow
 
 
-def pair_weights(voltages, strength=None):
-    """Weight of every pair: s_a * s_b (1 without strengths), 0 between components and on the diagonal.
+def pair_weights(voltages, patch_weight=None):
+    """Weight of every pair: w_a * w_b (1 without patch weights), 0 between components and on the diagonal.
 
-    ``strength`` holds one number per patch, in the order of ``graph.patch_ids``;
+    ``patch_weight`` holds one number per patch, in the order of ``graph.patch_ids``;
     another length raises :class:`~landflow.errors.InputError`.
     """
     k = voltages.graph.n_patches
-    s = np.ones(k) if strength is None else np.asarray(strength, dtype=float)
+    s = np.ones(k) if patch_weight is None else np.asarray(patch_weight, dtype=float)
     if s.shape != (k,):
-        raise InputError(f"strength must hold one number per patch ({k}, in the order of graph.patch_ids); "
+        raise InputError(f"patch_weight must hold one number per patch ({k}, in the order of graph.patch_ids); "
                          f"got shape {s.shape}.")
     w = np.outer(s, s)
     w[voltages.component_of_patch[:, None] != voltages.component_of_patch[None, :]] = 0.0
@@ -62,7 +62,7 @@ def pair_weights(voltages, strength=None):
     return w
 
 
-def cumulative_current(voltages, weights=None, *, progress=None):
+def current_density(voltages, weights=None, *, progress=None):
     """Current through every node summed over all patch pairs, each pair weighted.
 
     sum over pairs a < b of w_ab * (throughput of node x for unit current a -> b).
@@ -77,7 +77,7 @@ def cumulative_current(voltages, weights=None, *, progress=None):
 
         sum_{a<b} s_a s_b |d_a - d_b| = sum_i s_(i) d_(i) (S_below(i) - S_above(i)),
 
-    S_below and S_above being the summed strengths before and after position i
+    S_below and S_above being the summed patch weights before and after position i
     (the rank identity behind the Gini mean difference, e.g. David 1968,
     "Miscellanea: Gini's mean difference rediscovered", Biometrika 55:573,
     doi:10.1093/biomet/55.3.573). Other weights use the direct pairwise sum.
@@ -87,7 +87,7 @@ def cumulative_current(voltages, weights=None, *, progress=None):
     ----------
     voltages : PatchVoltages
     weights : ndarray, shape (k, k), optional
-        Pair weights; default :func:`pair_weights` without strengths. Only
+        Pair weights; default :func:`pair_weights` without patch weights. Only
         the pairs a < b are read (``weights[a, b]``), and pairs in different
         connected components carry no current whatever their weight.
     progress : callable(done, total), optional
@@ -105,7 +105,7 @@ def cumulative_current(voltages, weights=None, *, progress=None):
         w = np.asarray(weights, dtype=float)
         if w.shape != (k, k):
             raise InputError(f"weights must be a {k} x {k} matrix, one row and column per patch; "
-                             f"got shape {w.shape}. Make them with pair_weights(voltages, strength).")
+                             f"got shape {w.shape}. Make them with pair_weights(voltages, patch_weight).")
         w = np.triu(w, 1)                       # the pairs a < b, mirrored: the sum's own terms
         w = w + w.T
         w[voltages.component_of_patch[:, None] != voltages.component_of_patch[None, :]] = 0.0
@@ -120,8 +120,8 @@ def cumulative_current(voltages, weights=None, *, progress=None):
         drop = u[i[start:stop]] - u[j[start:stop]]          # (block, k)
         total = np.zeros(stop - start)
         if groups is not None:
-            for members, strength in groups:
-                total += _sorted_pair_sum(drop if members.size == k else drop[:, members], strength)
+            for members, weight in groups:
+                total += _sorted_pair_sum(drop if members.size == k else drop[:, members], weight)
         else:
             for a, others in pairs_of:
                 if others.size:
@@ -135,7 +135,7 @@ def cumulative_current(voltages, weights=None, *, progress=None):
 
 
 def _product_groups(component_of_patch, w):
-    """[(members, strengths)] per component when w_ab = s_a s_b inside components and 0 across; else None."""
+    """[(members, patch weights)] per component when w_ab = s_a s_b inside components and 0 across; else None."""
     k = w.shape[0]
     if w.shape != (k, k) or not np.array_equal(w, w.T):
         return None
@@ -167,18 +167,18 @@ def _product_groups(component_of_patch, w):
     return groups
 
 
-def _sorted_pair_sum(drop, strength):
+def _sorted_pair_sum(drop, weight):
     """sum over column pairs a < b of s_a s_b |drop_a - drop_b|, per row, by sorting each row."""
     m = drop.shape[1]
-    if np.all(strength == strength[0]):
-        coef = (2.0 * np.arange(m) - (m - 1)) * strength[0] ** 2
+    if np.all(weight == weight[0]):
+        coef = (2.0 * np.arange(m) - (m - 1)) * weight[0] ** 2
         return np.sort(drop, axis=1) @ coef
     order = np.argsort(drop, axis=1)
     d = np.take_along_axis(drop, order, axis=1)
-    s = strength[order]
+    s = weight[order]
     below = np.cumsum(s, axis=1)
-    below -= s                                   # strength strictly before position i
-    above = strength.sum() - below - s           # strength strictly after position i
+    below -= s                                   # weight strictly before position i
+    above = weight.sum() - below - s           # weight strictly after position i
     below -= above
     d *= s
     d *= below

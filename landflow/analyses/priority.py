@@ -13,7 +13,7 @@ import pandas as pd
 
 from ..errors import InputError
 from ..graph import cell_edges
-from .current import cumulative_current, pair_current, pair_weights
+from .current import current_density, pair_current, pair_weights
 from .resistance import effective_resistance
 
 __all__ = [
@@ -59,11 +59,11 @@ def check_connected_pairs(graph, pairs):
                              "effective resistance is infinite and has no derivative. Choose a connected pair.")
 
 
-def objective_weights(voltages, pairs=None, strength=None):
+def objective_weights(voltages, pairs=None, patch_weight=None):
     """Symmetric k x k weights of an objective sum over pairs.
 
     With ``pairs`` (node index pairs) each listed pair weighs 1; otherwise every
-    connected pair weighs s_a s_b (1 without strengths), as in
+    connected pair weighs w_a w_b (1 without patch weights), as in
     :func:`landflow.analyses.current.pair_weights`.
 
     Raises
@@ -72,7 +72,7 @@ def objective_weights(voltages, pairs=None, strength=None):
         A listed pair lies in two pieces of the landscape (infinite resistance).
     """
     if pairs is None:
-        return pair_weights(voltages, strength)
+        return pair_weights(voltages, patch_weight)
     check_connected_pairs(voltages.graph, pairs)
     k = voltages.graph.n_patches
     w = np.zeros((k, k))
@@ -270,8 +270,8 @@ class Corridor:
     current : ndarray (rows, cols)
         Current through each non-patch cell for a unit current from a to b
         (A per A injected); NaN on patch cells and outside the landscape.
-    normalised : ndarray (rows, cols)
-        ``current`` divided by its maximum, in [0, 1].
+    share_of_peak : ndarray (rows, cols)
+        ``current`` divided by its largest cell value, in [0, 1].
     inside : ndarray of bool (rows, cols)
         The corridor: the fewest cells that carry ``share`` of the summed current.
     pinch : ndarray of bool (rows, cols)
@@ -282,7 +282,7 @@ class Corridor:
     a: int
     b: int
     current: np.ndarray
-    normalised: np.ndarray
+    share_of_peak: np.ndarray
     inside: np.ndarray
     pinch: np.ndarray
     share: float
@@ -294,7 +294,7 @@ def corridor(voltages, a, b, *, share=0.5, pinch_share=0.05):
 
     Rules (cells of any patch are left out: they are the ends or stepping stones):
 
-    * normalised current: the cell's current divided by the largest cell current.
+    * share of peak current: the cell's current divided by the largest cell current.
     * corridor: sort cells by current, largest first (ties by cell order); the
       corridor is the shortest run from the top whose summed current reaches
       ``share`` of the summed current of all cells.
@@ -326,7 +326,7 @@ def corridor(voltages, a, b, *, share=0.5, pinch_share=0.05):
     cells = graph.to_raster(flow, dtype=np.float64)
     values = np.nan_to_num(cells, nan=0.0).reshape(-1)
     peak = values.max()
-    normalised = cells / peak if peak > 0 else np.zeros_like(cells)
+    share_of_peak = cells / peak if peak > 0 else np.zeros_like(cells)
     order = np.argsort(-values, kind="stable")
     running = np.cumsum(values[order])
     total = running[-1] if running.size else 0.0
@@ -336,13 +336,13 @@ def corridor(voltages, a, b, *, share=0.5, pinch_share=0.05):
         inside[order[:stop]] = True
     inside = inside.reshape(cells.shape)
     pinch = inside & (np.nan_to_num(cells, nan=0.0) >= pinch_share)
-    return Corridor(a, b, cells, normalised, inside, pinch, share, pinch_share)
+    return Corridor(a, b, cells, share_of_peak, inside, pinch, share, pinch_share)
 
 
 def corridor_cells_table(found, grid, patch_ids, *, top=10):
     """The ``top`` corridor cells by current, with map coordinates of their centres.
 
-    Columns: ``patch_a, patch_b, row, col, x, y, current, normalised_current, pinch_point``.
+    Columns: ``patch_a, patch_b, row, col, x, y, current, share_of_peak_current, pinch_point``.
     """
     rows, cols = np.nonzero(found.inside)
     current = found.current[rows, cols]
@@ -352,7 +352,7 @@ def corridor_cells_table(found, grid, patch_ids, *, top=10):
     return pd.DataFrame({
         "patch_a": patch_ids[found.a], "patch_b": patch_ids[found.b], "row": rows, "col": cols,
         "x": x, "y": y, "current": found.current[rows, cols],
-        "normalised_current": found.normalised[rows, cols], "pinch_point": found.pinch[rows, cols],
+        "share_of_peak_current": found.share_of_peak[rows, cols], "pinch_point": found.pinch[rows, cols],
     })
 
 
@@ -448,14 +448,14 @@ def restoration_gain(voltages, grid, weights, *, kind="resistance"):
 
 
 def scenario_change(before, after, weights_before, weights_after):
-    """Change of every pair's effective resistance and of cumulative current between two landscapes.
+    """Change of every pair's effective resistance and of current density between two landscapes.
 
     Parameters
     ----------
     before, after : PatchVoltages
         Solves on the present and the changed landscape (same grid, same patches).
     weights_before, weights_after : ndarray (k, k)
-        Pair weights for cumulative current on each (they differ only where
+        Pair weights for current density on each (they differ only where
         the change splits or joins pieces of the landscape).
 
     Returns
@@ -464,7 +464,7 @@ def scenario_change(before, after, weights_before, weights_after):
         ``patch_a, patch_b, resistance_before, resistance_after, resistance_change,
         resistance_change_percent`` (change = after - before).
     current_change : ndarray (rows, cols)
-        Cumulative current after minus before on every cell; a cell outside the
+        Current density after minus before on every cell; a cell outside the
         landscape on one side counts as carrying 0 there; NaN where it is
         outside on both.
     totals : dict
@@ -496,8 +496,8 @@ def scenario_change(before, after, weights_before, weights_after):
     table = pd.DataFrame({"patch_a": g0.patch_ids[a], "patch_b": g0.patch_ids[b],
                           "resistance_before": r0[a, b], "resistance_after": r1[a, b],
                           "resistance_change": change, "resistance_change_percent": percent})
-    c0 = g0.to_raster(cumulative_current(before, weights_before), dtype=np.float64)
-    c1 = g1.to_raster(cumulative_current(after, weights_after), dtype=np.float64)
+    c0 = g0.to_raster(current_density(before, weights_before), dtype=np.float64)
+    c1 = g1.to_raster(current_density(after, weights_after), dtype=np.float64)
     outside = np.isnan(c0) & np.isnan(c1)
     current_change = np.where(outside, np.nan, np.nan_to_num(c1) - np.nan_to_num(c0))
     totals = {"connectivity_before": connectivity(r0, weights_before),

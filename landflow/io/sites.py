@@ -10,22 +10,23 @@ import pandas as pd
 from ..errors import InputError
 from .rasters import read_aligned
 
-__all__ = ["Patches", "read_patch_raster", "read_patch_points", "patch_strength_from_raster"]
+__all__ = ["Patches", "read_patch_raster", "read_patch_points", "patch_weight_from_raster"]
 
 
 @dataclass(eq=False)
 class Patches:
-    """Patch labels on the grid (0 = no patch) and optional per-patch strength.
+    """Patch labels on the grid (0 = no patch) and optional per-patch weight.
 
     Attributes
     ----------
     labels : ndarray of int64, shape of the grid
-    strength : dict {patch id: float} or None
+    weight : dict {patch id: float} or None
+        Each patch's weight in the pair sum (population size, area, quality).
     source : str
     """
 
     labels: np.ndarray
-    strength: dict | None = None
+    weight: dict | None = None
     source: str = "array"
 
     @property
@@ -46,12 +47,12 @@ def read_patch_raster(path, grid):
     return Patches(values.astype(np.int64), None, str(path))
 
 
-def read_patch_points(path, grid, *, strength_column=None):
+def read_patch_points(path, grid, *, weight_column=None):
     """Patches from a CSV of points with columns ``x``, ``y``, ``id`` (map coordinates of the grid's CRS).
 
     Each point marks the cell it falls in. Several points may share an id
     (one patch of several cells); two different ids in one cell are an error.
-    With ``strength_column``, that column gives each patch's strength (a
+    With ``weight_column``, that column gives each patch's weight (a
     finite number >= 0, the same on every point of one id).
     """
     try:
@@ -61,7 +62,7 @@ def read_patch_points(path, grid, *, strength_column=None):
                          "(relative paths in a study are relative to the study file).") from None
     except (pd.errors.ParserError, pd.errors.EmptyDataError, UnicodeDecodeError) as exc:
         raise InputError(f"{path}: cannot read it as CSV ({exc}).") from None
-    needed = ["x", "y", "id"] + ([strength_column] if strength_column else [])
+    needed = ["x", "y", "id"] + ([weight_column] if weight_column else [])
     missing = [c for c in needed if c not in table.columns]
     if missing:
         raise InputError(f"{path}: missing column(s) {', '.join(missing)}; found {', '.join(map(str, table.columns))}. "
@@ -77,13 +78,13 @@ def read_patch_points(path, grid, *, strength_column=None):
     if bad.any():
         line = int(bad.argmax()) + 2
         raise InputError(f"{path}, line {line}: id {ids[line - 2]:g} is not a whole number > 0.")
-    if strength_column:
-        strength = table[strength_column].to_numpy()
-        bad = ~np.isfinite(strength) | (strength < 0)
+    if weight_column:
+        weight = table[weight_column].to_numpy()
+        bad = ~np.isfinite(weight) | (weight < 0)
         if bad.any():
             line = int(bad.argmax()) + 2
-            raise InputError(f"{path}, line {line}: {strength_column!r} is {strength[line - 2]:g}; "
-                             "a patch strength must be a finite number >= 0.")
+            raise InputError(f"{path}, line {line}: {weight_column!r} is {weight[line - 2]:g}; "
+                             "a patch weight must be a finite number >= 0.")
     rows, cols = grid.rowcol(table["x"].to_numpy(), table["y"].to_numpy())
     inside = (rows >= 0) & (rows < grid.shape[0]) & (cols >= 0) & (cols < grid.shape[1])
     if not inside.all():
@@ -106,25 +107,25 @@ def read_patch_points(path, grid, *, strength_column=None):
         raise InputError(f"{path}: points with different ids {both} fall in the same cell at "
                          f"{grid.where(r, q)}. Merge them into one id or move one of them.")
     labels.reshape(-1)[cell] = ids.astype(np.int64)
-    strength = None
-    if strength_column:
-        per_id = table.groupby("id")[strength_column]
+    weight = None
+    if weight_column:
+        per_id = table.groupby("id")[weight_column]
         if (per_id.nunique() > 1).any():
-            raise InputError(f"{path}: patch ids with several points must repeat the same {strength_column!r}.")
-        strength = {int(k): float(v) for k, v in per_id.first().items()}
-    return Patches(labels, strength, str(path))
+            raise InputError(f"{path}: patch ids with several points must repeat the same {weight_column!r}.")
+        weight = {int(k): float(v) for k, v in per_id.first().items()}
+    return Patches(labels, weight, str(path))
 
 
-def patch_strength_from_raster(path, grid, patches):
+def patch_weight_from_raster(path, grid, patches):
     """Strength of each patch as the sum of a raster's values over its cells."""
-    src = read_aligned(path, grid, what="patch strength raster")
+    src = read_aligned(path, grid, what="patch weight raster")
     values = np.where(src.mask, src.values, 0.0)
     bad = ~np.isfinite(values) | (values < 0)
     if bad.any():
         rows, cols = np.nonzero(bad)
         first = "negative" if values[rows[0], cols[0]] < 0 else "not finite"
-        raise InputError(f"{path}: strength must be >= 0; first {first} at {grid.where(rows[0], cols[0])}. "
-                         "Set cells without a strength to 0 or to the raster's nodata value.")
+        raise InputError(f"{path}: weight must be >= 0; first {first} at {grid.where(rows[0], cols[0])}. "
+                         "Set cells without a weight to 0 or to the raster's nodata value.")
     ids = patches.ids
     sums = np.bincount(np.searchsorted(ids, patches.labels[patches.labels > 0]),
                        weights=values[patches.labels > 0], minlength=ids.size)

@@ -40,9 +40,9 @@ def _non_negative(value):
 
 
 def _patch_rules(patches):
-    if patches["raster"] is not None and patches["strength_column"] is not None:
-        return ("'patches.strength_column' only applies to patch points; with a patch raster use "
-                "'patches.strength_raster'")
+    if patches["raster"] is not None and patches["weight_column"] is not None:
+        return ("'patches.weight_column' only applies to patch points; with a patch raster use "
+                "'patches.weight_raster'")
     return None
 
 
@@ -84,10 +84,12 @@ SECTIONS = {
                       unit="label", example="patches.tif"),
         "points": Key(str, None, "CSV with columns x, y, id (map coordinates in the landscape's CRS)", path="input",
                       unit="map units", example="sites.csv"),
-        "strength_column": Key(str, None, "column of the points CSV holding each patch's strength"),
-        "strength_raster": Key(str, None, "raster summed over each patch's cells to give its strength", path="input",
-                               unit="strength per cell", example="population.tif"),
-    }, "Habitat patches or sample sites.", exactly_one=(("raster", "points"),), check=_patch_rules),
+        "weight_column": Key(str, None, "column of the points CSV holding each patch's weight in the pair sum "
+                                        "(population size, area, quality)"),
+        "weight_raster": Key(str, None, "raster summed over each patch's cells to give its weight in the pair "
+                                        "sum", path="input", unit="weight per cell", example="population.tif"),
+    }, "Habitat patches or sample sites.", exactly_one=(("raster", "points"),), check=_patch_rules,
+        renamed={"strength_column": "weight_column", "strength_raster": "weight_raster"}),
     "mortality": Section({
         "raster": Key(str, None, "raster of per-step death probability in [0, 1) on the landscape's grid; "
                                  "nodata = 0", path="input"),

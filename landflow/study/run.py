@@ -23,7 +23,7 @@ from ..errors import ConfigError, InputError
 from ..graph import build_graph
 from ..grid import Grid
 from ..io.rasters import read_aligned, read_grid, write_geotiff
-from ..io.sites import patch_strength_from_raster, read_patch_points, read_patch_raster
+from ..io.sites import patch_weight_from_raster, read_patch_points, read_patch_raster
 from ..io.tables import write_csv
 from .config import Study, load_study
 
@@ -74,10 +74,10 @@ class RunContext:
                 self.patches = read_patch_raster(self._input(spec["raster"]), self.grid)
             else:
                 self.patches = read_patch_points(self._input(spec["points"]), self.grid,
-                                                 strength_column=spec["strength_column"])
-            if spec["strength_raster"] is not None:
-                self.patches.strength = patch_strength_from_raster(
-                    self._input(spec["strength_raster"]), self.grid, self.patches)
+                                                 weight_column=spec["weight_column"])
+            if spec["weight_raster"] is not None:
+                self.patches.weight = patch_weight_from_raster(
+                    self._input(spec["weight_raster"]), self.grid, self.patches)
         with self.timed("build graph"):
             self.graph = build_graph(self.grid, self.patches.labels, kind=kind,
                                      neighbours=land["neighbours"], edge_rule=land["edge_rule"])
@@ -122,9 +122,9 @@ class RunContext:
                       f"pieces have infinite effective resistance. Groups: {' | '.join(groups)}")
 
     @property
-    def strength(self):
-        """Per-patch strength in graph order, or None."""
-        s = self.patches.strength
+    def patch_weight(self):
+        """Per-patch weight in graph order, or None."""
+        s = self.patches.weight
         return None if s is None else np.array([s[int(p)] for p in self.graph.patch_ids])
 
     # -- shared solves -------------------------------------------------------

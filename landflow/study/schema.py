@@ -45,13 +45,15 @@ class Section:
     """A table of keys; ``exactly_one`` lists groups of keys of which exactly one must be set.
 
     ``check`` is an optional callable(resolved dict) -> error text or None for
-    rules that involve several keys.
+    rules that involve several keys. ``renamed`` maps keys of earlier releases
+    to their new names, so that an old study gets told the new key.
     """
 
     keys: dict
     doc: str = ""
     exactly_one: tuple = ()
     check: Callable | None = None
+    renamed: dict | None = None
 
 
 def close_match(name, options):
@@ -69,6 +71,10 @@ def validate_section(raw, section, where, base_dir, source):
         raise ConfigError(f"{source}: [{where}] must be a table, got {_show(raw)}.")
     for name in raw:
         if name not in section.keys:
+            new = (section.renamed or {}).get(name)
+            if new is not None:
+                raise ConfigError(f"{source}: the key '{name}' in [{where}] is now called '{new}'; rename it "
+                                  "(docs/study-files.md lists every key).")
             raise ConfigError(f"{source}: unknown key '{name}' in [{where}].{close_match(name, section.keys)} "
                               f"Known keys: {', '.join(section.keys) or 'none'}.")
     out = {}

@@ -149,7 +149,7 @@ def _read_sweep(table, raw, source):
         if key not in known:
             raise ConfigError(f"{source}: [sweep] names an unknown setting '{key}'.{close_match(key, known)} "
                               "Sweep keys are dotted names such as 'landscape.neighbours' or "
-                              "'analyses.current_density.per_pair'; see docs/study-files.md.")
+                              "'analyses.current_density.pair_current_maps'; see docs/study-files.md.")
         parts = key.split(".")
         if parts[0] == "analyses" and parts[1] not in raw.get("analyses", {}):
             raise ConfigError(f"{source}: [sweep] varies '{key}', but the study does not request "

@@ -132,11 +132,11 @@ def test_crossing_time_with_negatives():
         node_crossing_time(graph, [[0.0, -2.0, 1.0, 1.0]], source="t.tif")
 
 
-def test_source_strength_bad():
+def test_release_weight_bad():
     graph = strip([1.0] * 4, [1, 0, 0, 2])
-    with pytest.raises(InputError, match="source strength is 0 on every landscape cell"):
+    with pytest.raises(InputError, match="release weight is 0 on every landscape cell"):
         node_source(graph, np.zeros((1, 4)))
-    with pytest.raises(InputError, match=r"1 landscape cell\(s\) have a source strength that is negative"):
+    with pytest.raises(InputError, match=r"1 landscape cell\(s\) have a release weight that is negative"):
         node_source(graph, [[0.0, -1.0, 0.0, 0.0]])
 
 
@@ -177,7 +177,7 @@ before_any_other = [3]
 crossing_time = "crossing.tif"
 [analyses.expected_visits]
 release_patches = [1]
-source_raster = "source.tif"
+release_raster = "source.tif"
 [analyses.walk_simulation]
 walkers = 200
 release_patches = [1]
@@ -218,11 +218,11 @@ def test_study_writes_every_output(study_dir, mortality):
     else:
         lf.run_study(study)
     out = study_dir / "out"
-    names = ["hitting_probability_1_before_2.tif", "hitting_probability_3_before_any_other.tif",
+    names = ["pair_maps/1-2/hitting_probability_1_before_2.tif", "hitting_probability_3_before_any_other.tif",
              "absorption_probability_patch_1.tif", "absorption_probability_patch_3.tif",
              "most_likely_destination.tif", "arrival_probability.csv", "expected_steps.tif", "expected_time.tif",
              "expected_steps_from_patch.csv", "expected_visits_from_patch_1.tif",
-             "expected_visits_from_sources.tif", "walk_simulation_arrival.csv", "walk_simulation_steps.csv"]
+             "expected_visits_from_release_raster.tif", "walk_simulation_arrival.csv", "walk_simulation_steps.csv"]
     for name in names:
         assert (out / name).exists(), name
     assert (out / "death_probability.tif").exists() == bool(mortality)
@@ -283,7 +283,7 @@ def test_study_bad_requests(study_dir):
      r"'analyses\.hitting_probability\.before_any_other' names unknown patch id\(s\) 9"),
     ("[analyses.absorption_probability]", "[analyses.absorption_probability]\npatches = [4]",
      r"'analyses\.absorption_probability\.patches' names unknown patch id\(s\) 4"),
-    ("release_patches = [1]\nsource", "release_patches = [5]\nsource",
+    ("release_patches = [1]\nrelease_raster", "release_patches = [5]\nrelease_raster",
      r"'analyses\.expected_visits\.release_patches' names unknown patch id\(s\) 5"),
     ("walkers = 200\nrelease_patches = [1]", "walkers = 200\nrelease_patches = [6]",
      r"'analyses\.walk_simulation\.release_patches' names unknown patch id\(s\) 6"),
@@ -320,7 +320,7 @@ def test_study_reports_unreachable_cells(study_dir):
     manifest = lf.run_study(study)
     assert any(w.startswith("11 cell(s) cannot reach patch 1 without first entering patch 2")
                for w in manifest["warnings"]), manifest["warnings"]
-    with rasterio.open(study_dir / "out" / "hitting_probability_1_before_2.tif") as src:
+    with rasterio.open(study_dir / "out" / "pair_maps/1-2/hitting_probability_1_before_2.tif") as src:
         h = src.read(1)
     assert (h[:, 5:] == 0).all() and (h[:, :4] > 0.99).all()
 

@@ -31,7 +31,7 @@ def test_parallel_strips_split_current_three_to_one():
     found = corridor(voltages, 0, 1, share=0.75, pinch_share=0.5)
     np.testing.assert_allclose(found.current[0, 1:7], 0.75, rtol=1e-9)
     np.testing.assert_allclose(found.current[2, 1:7], 0.25, rtol=1e-9)
-    np.testing.assert_allclose(found.normalised[2, 1:7], 1 / 3, rtol=1e-9)
+    np.testing.assert_allclose(found.share_of_peak[2, 1:7], 1 / 3, rtol=1e-9)
     assert np.isnan(found.current[:, 0]).all() and np.isnan(found.current[1, 3])
     # the upper strip alone carries exactly 3/4 of the summed current: it is the corridor
     assert found.inside[0, 1:7].all() and not found.inside[2].any()

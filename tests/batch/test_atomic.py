@@ -43,7 +43,7 @@ def test_killed_run_leaves_no_finished_looking_folder(tmp_path):
         labels[r - 1:r + 2, c - 1:c + 2] = label
     write_raster(tmp_path / "patches.tif", labels, dtype="uint8", nodata=0)
     # 21 pairs x 2 maps: the run spends a while writing before its manifest
-    slow = "per_pair = true\nvoltage_per_pair = true"
+    slow = "pair_current_maps = true\npair_voltage_maps = true"
     study = write_study(tmp_path / "s.toml", study_text(folder="results", extra=slow))
 
     proc = start_run(study)

@@ -122,7 +122,7 @@ def test_invalid_study_is_reported_and_the_rest_run(landscape, tmp_path):
     with rasterio.open(landscape / "resistance.tif") as src:
         write_raster(landscape / "resistance.tif", src.read(1) * 2)
     assert run_batch([good], workers=0, summary=tmp_path / "s.csv", stream=stream)[0].status == "done"
-    write_study(good, study_text(folder="good", extra="per_pair = true"))
+    write_study(good, study_text(folder="good", extra="pair_current_maps = true"))
     assert run_batch([good], workers=0, summary=tmp_path / "s.csv", stream=stream)[0].status == "done"
     assert run_batch([good], workers=0, summary=tmp_path / "s.csv", stream=stream)[0].status == "skipped"
     # an output deleted since the last run: not up to date
@@ -133,7 +133,7 @@ def test_invalid_study_is_reported_and_the_rest_run(landscape, tmp_path):
 
 def test_two_runs_sharing_an_output_folder_are_refused(landscape, tmp_path):
     a = write_study(landscape / "a.toml", study_text(folder="same"))
-    b = write_study(landscape / "b.toml", study_text(folder="same", extra="per_pair = true"))
+    b = write_study(landscape / "b.toml", study_text(folder="same", extra="pair_current_maps = true"))
     with pytest.raises(ValueError, match=r"runs 'a' and 'b' would both write to .*same; give each study its own"):
         run_batch([a, b], workers=0, summary=tmp_path / "s.csv", stream=io.StringIO())
 

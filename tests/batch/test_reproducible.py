@@ -17,14 +17,14 @@ def outputs(folder):
 
 @pytest.mark.parametrize("method", ["direct", "multigrid"])
 def test_two_runs_give_identical_tables_and_rasters(landscape, method):
-    extra = "per_pair = true\nvoltage_per_pair = true\n\n[solver]\nmethod = \"%s\"\ntolerance = 1e-10" % method
+    extra = "pair_current_maps = true\npair_voltage_maps = true\n\n[solver]\nmethod = \"%s\"\ntolerance = 1e-10" % method
     a = run_study(write_study(landscape / "a.toml", study_text(folder="a", extra=extra)))
     b = run_study(write_study(landscape / "b.toml", study_text(folder="b", extra=extra)))
     fa, fb = landscape / "a", landscape / "b"
     assert outputs(fa) == outputs(fb)
     tables = [p for p in outputs(fa) if p.suffix == ".csv"]
     rasters = [p for p in outputs(fa) if p.suffix == ".tif"]
-    assert len(tables) == 2 and len(rasters) == 13      # 1 cumulative + 6 pairs x (current, voltage)
+    assert len(tables) == 2 and len(rasters) == 13      # current density + 6 pairs x (current, voltage)
     for name in tables:
         assert (fa / name).read_bytes() == (fb / name).read_bytes(), name
     for name in rasters:

@@ -25,13 +25,13 @@ def sweep_study(folder, sweep, base=None):
 
 def test_expansion_names_folders_and_values(landscape):
     runs = expand_study(sweep_study(landscape, '"landscape.neighbours" = [4, 8]\n'
-                                               'analyses.current_density.per_pair = [false, true]\n'))
-    assert [r.name for r in runs] == ["sw/neighbours-4_per_pair-false", "sw/neighbours-4_per_pair-true",
-                                      "sw/neighbours-8_per_pair-false", "sw/neighbours-8_per_pair-true"]
+                                               'analyses.current_density.pair_current_maps = [false, true]\n'))
+    assert [r.name for r in runs] == ["sw/neighbours-4_pair_current_maps-false", "sw/neighbours-4_pair_current_maps-true",
+                                      "sw/neighbours-8_pair_current_maps-false", "sw/neighbours-8_pair_current_maps-true"]
     assert [r.folder for r in runs] == [landscape / "swept" / r.run_name for r in runs]
     assert runs[1].study.settings["landscape"]["neighbours"] == 4
-    assert runs[1].study.analyses["current_density"]["per_pair"] is True
-    assert runs[2].study.variation == {"landscape.neighbours": 8, "analyses.current_density.per_pair": False}
+    assert runs[1].study.analyses["current_density"]["pair_current_maps"] is True
+    assert runs[2].study.variation == {"landscape.neighbours": 8, "analyses.current_density.pair_current_maps": False}
 
 
 def test_a_list_of_rasters(landscape):
@@ -63,9 +63,9 @@ def test_bad_sweeps(landscape, sweep, message):
 
 
 def test_sweeping_an_analysis_the_study_does_not_request(landscape):
-    with pytest.raises(ConfigError, match=r"varies 'analyses.current_density.per_pair', but the study does not "
+    with pytest.raises(ConfigError, match=r"varies 'analyses.current_density.pair_current_maps', but the study does not "
                                           r"request \[analyses.current_density\]"):
-        expand_study(sweep_study(landscape, '"analyses.current_density.per_pair" = [true]\n', ONLY_RESISTANCE))
+        expand_study(sweep_study(landscape, '"analyses.current_density.pair_current_maps" = [true]\n', ONLY_RESISTANCE))
 
 
 def test_a_sweep_needs_effective_resistance(landscape):

@@ -116,27 +116,27 @@ def test_throughput_matches_networkx_current_flow_betweenness(neighbours, edge_r
 
 
 @pytest.mark.parametrize("with_weights", [False, True])
-def test_cumulative_current_is_the_weighted_sum_of_pair_currents(with_weights, landscape, monkeypatch):
+def test_current_density_is_the_weighted_sum_of_pair_currents(with_weights, landscape, monkeypatch):
     values, valid, patches = landscape(13, rows=8, cols=10, n_patches=4)
     values[:, 5] = np.nan                               # two pieces: some pairs are not connected
     graph, voltages = _solve(values, patches, neighbours=8)
     k = graph.n_patches
-    strength = np.random.default_rng(2).uniform(0.5, 3.0, size=k) if with_weights else None
-    weights = lf.pair_weights(voltages, strength)
+    patch_weight = np.random.default_rng(2).uniform(0.5, 3.0, size=k) if with_weights else None
+    weights = lf.pair_weights(voltages, patch_weight)
     expected = np.zeros(graph.n_nodes)
     for a, b in itertools.combinations(range(k), 2):
         if voltages.connected(a, b):
-            expected += (1.0 if strength is None else strength[a] * strength[b]) * lf.pair_current(voltages, a, b)
+            expected += (1.0 if patch_weight is None else patch_weight[a] * patch_weight[b]) * lf.pair_current(voltages, a, b)
         else:
             assert weights[a, b] == 0
     # a small edge block exercises the blocking of the sum as well
     monkeypatch.setattr("landflow.analyses.current.EDGE_BLOCK", 17)
-    np.testing.assert_allclose(lf.cumulative_current(voltages, weights), expected, rtol=1e-10, atol=1e-12)
+    np.testing.assert_allclose(lf.current_density(voltages, weights), expected, rtol=1e-10, atol=1e-12)
     monkeypatch.undo()
-    np.testing.assert_allclose(lf.cumulative_current(voltages, weights), expected, rtol=1e-10, atol=1e-12)
+    np.testing.assert_allclose(lf.current_density(voltages, weights), expected, rtol=1e-10, atol=1e-12)
 
 
-def test_cumulative_current_reads_only_the_pairs_it_sums(landscape):
+def test_current_density_reads_only_the_pairs_it_sums(landscape):
     # the sum runs over pairs a < b of one piece: a diagonal, a lower triangle or a weight
     # across pieces (where no current flows) must not change it
     values, _, _ = landscape(13, rows=8, cols=10, n_patches=0, n_nodata=0)
@@ -153,10 +153,10 @@ def test_cumulative_current_reads_only_the_pairs_it_sums(landscape):
         if connected[a, b]:
             expected += upper[a, b] * lf.pair_current(voltages, a, b)
     noisy = upper + np.diag(np.full(k, 7.0)) + np.tril(np.full((k, k), 5.0), -1)
-    np.testing.assert_allclose(lf.cumulative_current(voltages, noisy), expected, rtol=1e-10, atol=1e-12)
+    np.testing.assert_allclose(lf.current_density(voltages, noisy), expected, rtol=1e-10, atol=1e-12)
     with pytest.raises(lf.InputError, match=rf"weights must be a {k} x {k} matrix, one row and column per patch; "
                                             r"got shape \(2, 2\)\. Make them with pair_weights"):
-        lf.cumulative_current(voltages, np.ones((2, 2)))
-    with pytest.raises(lf.InputError, match=rf"strength must hold one number per patch \({k}, in the order of "
+        lf.current_density(voltages, np.ones((2, 2)))
+    with pytest.raises(lf.InputError, match=rf"patch_weight must hold one number per patch \({k}, in the order of "
                                             r"graph\.patch_ids\); got shape \(3,\)"):
         lf.pair_weights(voltages, [1.0, 2.0, 3.0])

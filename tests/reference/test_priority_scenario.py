@@ -71,7 +71,7 @@ def test_resistance_after_equals_fresh_run(runs):
 
 
 def test_current_change_equals_fresh_minus_present(runs):
-    change = read(runs / "whatif" / "scenario_current_change.tif")
+    change = read(runs / "whatif" / "current_density_change.tif")
     present = read(runs / "whatif" / "current_density.tif")
     fresh = read(runs / "fresh" / "current_density.tif")
     expected = np.nan_to_num(fresh) - np.nan_to_num(present)

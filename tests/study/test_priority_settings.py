@@ -117,13 +117,13 @@ def test_command_line_check_reports_unknown_pair(folder):
 def test_all_steps_run_on_a_split_landscape(folder):
     # pairs across the gap have infinite resistance: ranked last, no corridor, a warning
     s = study(folder, {"corridor_ranking": {}, "corridor_maps": {"pairs": [[1, 2], [2, 3]]},
-                       "restoration_gain": {}, "least_cost_paths": {"per_pair": True},
+                       "restoration_gain": {}, "least_cost_paths": {"pair_route_maps": True},
                        "scenario_change": {"changed_landscape": "resistance.tif"}})
     manifest = run_study(s)
     files = {o["file"] for o in manifest["outputs"]}
-    assert {"corridor_ranking.csv", "corridors/corridor_1_2.tif", "restoration_gain.tif",
-            "least_cost_paths/path_1_2.tif", "scenario_change.csv"} <= files
-    assert "corridors/corridor_2_3.tif" not in files
+    assert {"corridor_ranking.csv", "pair_maps/1-2/corridor.tif", "restoration_gain.tif",
+            "pair_maps/1-2/least_cost_path.tif", "scenario_change.csv"} <= files
+    assert "pair_maps/2-3/corridor.tif" not in files
     assert any("2 and 3 are in separate pieces" in w for w in manifest["warnings"])
     import pandas as pd
     ranking = pd.read_csv(folder / "out" / "corridor_ranking.csv")

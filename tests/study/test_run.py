@@ -1,4 +1,4 @@
-"""A study from patch points with strengths, through the runner, against the API."""
+"""A study from patch points with patch weights, through the runner, against the API."""
 
 import json
 
@@ -18,31 +18,31 @@ def points_study(study, tmp_path, centre):
     rows = [[*centre(1, 1), 1, 5.0], [*centre(1, 2), 1, 5.0], [*centre(4, 5), 2, 2.0], [*centre(3, 0), 3, 0.5]]
     pd.DataFrame(rows, columns=["x", "y", "id", "adults"]).to_csv(tmp_path / "points.csv", index=False)
     return study(landscape='resistance = "resistance.tif"\nneighbours = 4\nedge_rule = "mean_conductance"',
-                 patches='points = "points.csv"\nstrength_column = "adults"',
-                 analyses="[analyses.current_density]\nper_pair = true\n\n[analyses.effective_resistance]\n")
+                 patches='points = "points.csv"\nweight_column = "adults"',
+                 analyses="[analyses.current_density]\npair_current_maps = true\n\n[analyses.effective_resistance]\n")
 
 
-def test_points_study_with_strengths_matches_the_api(points_study, tmp_path):
+def test_points_study_with_patch_weights_matches_the_api(points_study, tmp_path):
     manifest = lf.run_study(points_study)
     out = tmp_path / "results"
     grid = read_grid(tmp_path / "resistance.tif")
-    patches = read_patch_points(tmp_path / "points.csv", grid, strength_column="adults")
+    patches = read_patch_points(tmp_path / "points.csv", grid, weight_column="adults")
     graph = lf.build_graph(grid, patches.labels, neighbours=4, edge_rule="mean_conductance")
     voltages = lf.patch_voltages(graph)
-    strength = np.array([patches.strength[int(p)] for p in graph.patch_ids])
-    np.testing.assert_array_equal(strength, [5.0, 2.0, 0.5])
-    expected = graph.to_raster(lf.cumulative_current(voltages, lf.pair_weights(voltages, strength)))
+    weight = np.array([patches.weight[int(p)] for p in graph.patch_ids])
+    np.testing.assert_array_equal(weight, [5.0, 2.0, 0.5])
+    expected = graph.to_raster(lf.current_density(voltages, lf.pair_weights(voltages, weight)))
     with rasterio.open(out / "current_density.tif") as src:
         written = src.read(1, masked=True)
     np.testing.assert_array_equal(written.mask, np.isnan(expected))
     np.testing.assert_allclose(written.filled(np.nan), expected, rtol=1e-6)     # float32 on disk
-    with rasterio.open(out / "pairs" / "current_1_3.tif") as src:
+    with rasterio.open(out / "pair_maps" / "1-3" / "current.tif") as src:
         np.testing.assert_allclose(src.read(1, masked=True).filled(np.nan),
                                    graph.to_raster(lf.pair_current(voltages, 0, 2)), rtol=1e-6)
     table = pd.read_csv(out / "effective_resistance.csv")
     np.testing.assert_allclose(table.resistance, lf.resistance_table(voltages).resistance, rtol=1e-12)
     on_disk = json.loads((out / "manifest.json").read_text(encoding="utf-8"))
-    assert on_disk["settings"]["patches"]["strength_column"] == "adults"
+    assert on_disk["settings"]["patches"]["weight_column"] == "adults"
     assert [o["file"] for o in on_disk["outputs"]] == [o["file"] for o in manifest["outputs"]]
 
 
@@ -59,9 +59,9 @@ def test_rerun_gives_identical_numbers(points_study, tmp_path):
         np.testing.assert_array_equal(src.read(1), current)
 
 
-def test_strength_column_needs_points(study):
-    with pytest.raises(lf.ConfigError, match=r"'patches\.strength_column' only applies to patch points; with a "
-                                             r"patch raster use 'patches\.strength_raster'"):
-        lf.run_study(study(patches='raster = "patches.tif"\nstrength_column = "adults"'))
-    with pytest.raises(lf.ConfigError, match=r"'patches\.strength_column' only applies to patch points"):
-        load_study(study(patches='raster = "patches.tif"\nstrength_column = "adults"'))   # before any input is read
+def test_weight_column_needs_points(study):
+    with pytest.raises(lf.ConfigError, match=r"'patches\.weight_column' only applies to patch points; with a "
+                                             r"patch raster use 'patches\.weight_raster'"):
+        lf.run_study(study(patches='raster = "patches.tif"\nweight_column = "adults"'))
+    with pytest.raises(lf.ConfigError, match=r"'patches\.weight_column' only applies to patch points"):
+        load_study(study(patches='raster = "patches.tif"\nweight_column = "adults"'))   # before any input is read

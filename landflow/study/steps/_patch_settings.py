@@ -3,7 +3,19 @@
 from ...analyses.priority import pair_nodes
 from ...errors import ConfigError, InputError
 
-__all__ = ["patch_id_list", "check_pair_list", "patch_ids_or_all", "resolve_pairs", "share_in_unit_interval"]
+__all__ = ["patch_id_list", "check_pair_list", "patch_ids_or_all", "resolve_pairs", "share_in_unit_interval",
+           "pair_map"]
+
+
+def pair_map(a, b, name):
+    """Path of one of a pair's maps: every map of patches a and b lives in ``pair_maps/<low>-<high>/``.
+
+    ``a`` and ``b`` are patch ids; the folder orders them, so both directions of a
+    pair share one folder (``pair_map(6, 2, "current.tif")`` is
+    ``pair_maps/2-6/current.tif``).
+    """
+    low, high = sorted((a, b), key=lambda p: (str(type(p)), p))
+    return f"pair_maps/{low}-{high}/{name}"
 
 
 def share_in_unit_interval(value):

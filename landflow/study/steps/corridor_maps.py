@@ -5,7 +5,7 @@ import pandas as pd
 
 from ...analyses.priority import corridor, corridor_cells_table
 from ..schema import Key, Section
-from ._patch_settings import check_pair_list, resolve_pairs, share_in_unit_interval
+from ._patch_settings import check_pair_list, pair_map, resolve_pairs, share_in_unit_interval
 
 NAME = "corridor_maps"
 SETTINGS = Section({
@@ -17,8 +17,9 @@ SETTINGS = Section({
                                    "unit current passes through it, in (0, 1]", check=share_in_unit_interval),
     "top_cells": Key(int, 10, "corridor cells listed per pair in corridor_cells.csv",
                      check=lambda v: None if v >= 1 else "must be at least 1"),
-}, "Corridor of each patch pair: current normalised to its maximum, the corridor extent and pinch points. "
-   "Writes corridors/*.tif, corridor_overlap.tif, pinch_points.tif and corridor_cells.csv.")
+}, "Corridor of each patch pair: its current as a share of the pair's peak cell current, the corridor extent "
+   "and pinch points. Writes pair_maps/A-B/corridor.tif and share_of_peak_current.tif, corridor_overlap.tif, "
+   "pinch_points.tif and corridor_cells.csv.")
 
 
 def check(ctx, settings):
@@ -43,13 +44,12 @@ def run(ctx, settings):
                      "no corridor joins them.")
             continue
         found = corridor(voltages, a, b, share=settings["corridor_share"], pinch_share=settings["pinch_share"])
-        tag = f"{ids[a]}_{ids[b]}"
-        ctx.write_raster(f"corridors/normalised_current_{tag}.tif", found.normalised, per_node=False,
+        ctx.write_raster(pair_map(ids[a], ids[b], "share_of_peak_current.tif"), found.share_of_peak, per_node=False,
                          units="1 (share of the pair's largest cell current)",
                          description=f"current between patches {ids[a]} and {ids[b]} divided by its largest "
                                      "cell value; patch cells are nodata")
         classes = np.where(inside_landscape, found.inside.astype(float) + found.pinch, np.nan)
-        ctx.write_raster(f"corridors/corridor_{tag}.tif", classes, per_node=False,
+        ctx.write_raster(pair_map(ids[a], ids[b], "corridor.tif"), classes, per_node=False,
                          units="class: 0 outside, 1 corridor, 2 pinch point",
                          description=f"corridor of patches {ids[a]}-{ids[b]} holding "
                                      f"{settings['corridor_share']:g} of the summed current, and its pinch points")

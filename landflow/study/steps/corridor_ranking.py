@@ -8,17 +8,18 @@ from ..schema import Key, Section
 
 NAME = "corridor_ranking"
 SETTINGS = Section({
-    "weight_by_strength": Key(bool, True, "weight each pair by the product of the two patches' strengths "
-                                          "(when strengths are given)"),
+    "use_patch_weights": Key(bool, True, "weight each pair by the product of the two patches' weights "
+                                         "(when patch weights are given)"),
     "least_cost": Key(bool, True, "add the least-cost distance of each pair beside its effective resistance"),
 }, "Ranking of the links between patches by the drop in overall connectivity (sum of weight / effective "
-   "resistance over pairs) if the link were lost. Writes corridor_ranking.csv.")
+   "resistance over pairs) if the link were lost. Writes corridor_ranking.csv.",
+    renamed={"weight_by_strength": "use_patch_weights"})
 
 
 def run(ctx, settings):
     voltages = ctx.voltages
-    strength = ctx.strength if settings["weight_by_strength"] else None
-    weights = pair_weights(voltages, strength)
+    patch_weight = ctx.patch_weight if settings["use_patch_weights"] else None
+    weights = pair_weights(voltages, patch_weight)
     distance = None
     if settings["least_cost"]:
         distance = ctx.least_cost.matrix

@@ -2,24 +2,28 @@
 
 import logging
 
-from ...analyses.current import cumulative_current, pair_current, pair_weights
+from ...analyses.current import current_density, pair_current, pair_weights
 from ..schema import Key, Section
+from ._patch_settings import pair_map
 
 log = logging.getLogger("landflow")
 
 NAME = "current_density"
 SETTINGS = Section({
-    "weight_by_strength": Key(bool, True, "weight each pair by the product of the two patches' strengths "
-                                          "(when strengths are given)"),
-    "per_pair": Key(bool, False, "also write one current map per patch pair (pairs/current_A_B.tif)"),
-    "voltage_per_pair": Key(bool, False, "also write one voltage map per patch pair (pairs/voltage_A_B.tif)"),
-}, "Current density: where movement between patches concentrates.")
+    "use_patch_weights": Key(bool, True, "weight each pair by the product of the two patches' weights "
+                                         "(when patch weights are given)"),
+    "pair_current_maps": Key(bool, False, "also write each patch pair's own current map "
+                                          "(pair_maps/A-B/current.tif)"),
+    "pair_voltage_maps": Key(bool, False, "also write each patch pair's voltage map (pair_maps/A-B/voltage.tif)"),
+}, "Current density: where movement between patches concentrates.",
+    renamed={"weight_by_strength": "use_patch_weights", "per_pair": "pair_current_maps",
+             "voltage_per_pair": "pair_voltage_maps"})
 
 
 def run(ctx, settings):
     voltages = ctx.voltages
-    strength = ctx.strength if settings["weight_by_strength"] else None
-    weights = pair_weights(voltages, strength)
+    patch_weight = ctx.patch_weight if settings["use_patch_weights"] else None
+    weights = pair_weights(voltages, patch_weight)
     last = [0]
 
     def progress(done, total):
@@ -28,12 +32,12 @@ def run(ctx, settings):
             last[0] = pct
             log.info("summing current over pairs: %d%%", pct)
 
-    flow = cumulative_current(voltages, weights, progress=progress)
-    units = "A (sum over pairs of unit currents" + (", weighted by strength products)" if strength is not None else ")")
+    flow = current_density(voltages, weights, progress=progress)
+    units = "A (sum over pairs of unit currents" + (", weighted by patch-weight products)" if patch_weight is not None else ")")
     cells = ctx.write_raster("current_density.tif", flow, units=units,
                              description="current through each cell summed over all patch pairs")
     ctx.quicklook("current_density.png", cells, title="Current summed over patch pairs", units=units)
-    if not (settings["per_pair"] or settings["voltage_per_pair"]):
+    if not (settings["pair_current_maps"] or settings["pair_voltage_maps"]):
         return
     ids = ctx.graph.patch_ids
     k = len(ids)
@@ -41,10 +45,9 @@ def run(ctx, settings):
         for b in range(a + 1, k):
             if not voltages.connected(a, b):
                 continue
-            tag = f"{ids[a]}_{ids[b]}"
-            if settings["per_pair"]:
-                ctx.write_raster(f"pairs/current_{tag}.tif", pair_current(voltages, a, b), units="A",
+            if settings["pair_current_maps"]:
+                ctx.write_raster(pair_map(ids[a], ids[b], "current.tif"), pair_current(voltages, a, b), units="A",
                                  description=f"current for a unit current from patch {ids[a]} to patch {ids[b]}")
-            if settings["voltage_per_pair"]:
-                ctx.write_raster(f"pairs/voltage_{tag}.tif", voltages.pair_voltage(a, b), units="V (resistance unit x A)",
+            if settings["pair_voltage_maps"]:
+                ctx.write_raster(pair_map(ids[a], ids[b], "voltage.tif"), voltages.pair_voltage(a, b), units="V (resistance unit x A)",
                                  description=f"voltage for a unit current from patch {ids[a]} to {ids[b]}, 0 at {ids[b]}")

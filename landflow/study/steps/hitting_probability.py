@@ -2,12 +2,12 @@
 
 from ...analyses.absorption import hitting_probability
 from ..schema import Key, Section
-from ._patch_settings import check_pair_list, patch_id_list, patch_ids_or_all
+from ._patch_settings import check_pair_list, pair_map, patch_id_list, patch_ids_or_all
 
 NAME = "hitting_probability"
 SETTINGS = Section({
     "pairs": Key(list, [], "pairs [A, B] of patch ids; for each, a map of P(reach A before B) "
-                           "(hitting_probability_A_before_B.tif)", check=check_pair_list, example=[[1, 2]]),
+                           "(pair_maps/A-B/hitting_probability_A_before_B.tif)", check=check_pair_list, example=[[1, 2]]),
     "before_any_other": Key(list, [], "patch ids A; for each, a map of P(reach A before any other patch) "
                                       "(hitting_probability_A_before_any_other.tif)", check=patch_id_list,
                             example=[1]),
@@ -31,10 +31,10 @@ def run(ctx, settings):
     for a, b in pairs:
         with ctx.forward_warnings():
             h = hitting_probability(walk, a, b)
-        cells = ctx.write_raster(f"hitting_probability_{a}_before_{b}.tif", h, units=units,
+        cells = ctx.write_raster(pair_map(a, b, f"hitting_probability_{a}_before_{b}.tif"), h, units=units,
                                  description=f"probability that a walker from each cell reaches patch {a} "
                                              f"before patch {b}")
-        ctx.quicklook(f"hitting_probability_{a}_before_{b}.png", cells, units=units, log_scale=False,
+        ctx.quicklook(pair_map(a, b, f"hitting_probability_{a}_before_{b}.png"), cells, units=units, log_scale=False,
                       title=f"Probability of reaching patch {a} before patch {b}")
     for a in singles:
         with ctx.forward_warnings():

@@ -5,12 +5,15 @@ import numpy as np
 from ...analyses.least_cost import least_cost_table
 from ...analyses.resistance import effective_resistance
 from ..schema import Key, Section
+from ._patch_settings import pair_map
 
 NAME = "least_cost_paths"
 SETTINGS = Section({
-    "per_pair": Key(bool, False, "also write the cheapest route of each pair (least_cost_paths/path_A_B.tif)"),
+    "pair_route_maps": Key(bool, False, "also write the cheapest route of each pair "
+                                        "(pair_maps/A-B/least_cost_path.tif)"),
 }, "The single cheapest route between every pair of patches, on the same edges as the circuit, beside the "
-   "effective resistance. Writes least_cost_distance.csv and least_cost_paths.tif.")
+   "effective resistance. Writes least_cost_distance.csv and least_cost_paths.tif.",
+    renamed={"per_pair": "pair_route_maps"})
 
 
 def run(ctx, settings):
@@ -27,7 +30,7 @@ def run(ctx, settings):
                                          "routes that start, end or pass there)")
     ctx.quicklook("least_cost_paths.png", np.where(cells > 0, cells, np.nan), title="Least-cost paths",
                   units="number of pairs", log_scale=False)
-    if settings["per_pair"]:
+    if settings["pair_route_maps"]:
         ids = graph.patch_ids
         k = graph.n_patches
         for a in range(k):
@@ -36,5 +39,5 @@ def run(ctx, settings):
                 if nodes.size:
                     on = np.zeros(graph.n_nodes)
                     on[nodes] = 1.0
-                    ctx.write_raster(f"least_cost_paths/path_{ids[a]}_{ids[b]}.tif", on, units="1 on the route",
+                    ctx.write_raster(pair_map(ids[a], ids[b], "least_cost_path.tif"), on, units="1 on the route",
                                      description=f"cheapest route between patches {ids[a]} and {ids[b]}")

@@ -12,14 +12,15 @@ NAME = "restoration_gain"
 SETTINGS = Section({
     "pairs": Key(list, [], "the objective: the sum of effective resistance over these patch pairs, e.g. "
                            "[[1, 2]]; empty = every connected pair, weighted", check=check_pair_list),
-    "weight_by_strength": Key(bool, True, "with every pair, weight each by the product of the patches' "
-                                          "strengths (when strengths are given)"),
+    "use_patch_weights": Key(bool, True, "with every pair, weight each by the product of the patches' "
+                                         "weights (when patch weights are given)"),
     "top_cells": Key(int, 20, "cells listed in restoration_gain_cells.csv",
                      check=lambda v: None if v >= 1 else "must be at least 1"),
 }, "Restoration gain: for every cell, the first-order drop of the objective (effective resistance of one "
    "pair or a weighted sum over pairs) per unit reduction of the cell's resistance (per unit increase of "
    "conductance on a conductance surface). Writes restoration_gain.tif, restoration_gain_relative.tif and "
-   "restoration_gain_cells.csv.")
+   "restoration_gain_cells.csv.",
+    renamed={"weight_by_strength": "use_patch_weights"})
 
 
 def check(ctx, settings):
@@ -35,8 +36,8 @@ def check(ctx, settings):
 def run(ctx, settings):
     pairs = check(ctx, settings)
     voltages = ctx.voltages
-    strength = ctx.strength if settings["weight_by_strength"] and pairs is None else None
-    weights = objective_weights(voltages, pairs, strength)
+    patch_weight = ctx.patch_weight if settings["use_patch_weights"] and pairs is None else None
+    weights = objective_weights(voltages, pairs, patch_weight)
     gain = restoration_gain(voltages, ctx.grid, weights, kind=ctx.kind)
     per = "reduction of resistance" if ctx.kind == "resistance" else "increase of conductance"
     units = f"objective units per unit {per} (map units x pair weight for a resistance surface)"

@@ -17,11 +17,12 @@ SETTINGS = Section({
                                             "as [landscape] (resistance, conductance, or suitability, which "
                                             "goes through the same transform) and the same grid",
                              path="input"),
-    "weight_by_strength": Key(bool, True, "weight pairs in the cumulative current by the product of the "
-                                          "patches' strengths (when strengths are given)"),
+    "use_patch_weights": Key(bool, True, "weight pairs in the current density by the product of the "
+                                          "patches' weights (when patch weights are given)"),
 }, "What-if: solves again on a changed landscape raster (for example a planned underpass or a new road) "
-   "and reports the change of every pair's effective resistance and of cumulative current. Writes "
-   "scenario_change.csv and scenario_current_change.tif.")
+   "and reports the change of every pair's effective resistance and of current density. Writes "
+   "scenario_change.csv and current_density_change.tif.",
+    renamed={"weight_by_strength": "use_patch_weights"})
 
 _KEY = "analyses.scenario_change.changed_landscape"
 
@@ -48,17 +49,17 @@ def run(ctx, settings):
         raise InputError(f"{ctx.study.path or 'study'}: '{_KEY}': {exc}") from None
     after = patch_voltages(graph, method=solver["method"], tolerance=solver["tolerance"], progress=log.info)
     ctx.add_solvers("patch voltages of the changed landscape", after.solvers)
-    strength = ctx.strength if settings["weight_by_strength"] else None
+    patch_weight = ctx.patch_weight if settings["use_patch_weights"] else None
     before = ctx.voltages
-    table, change, totals = scenario_change(before, after, pair_weights(before, strength),
-                                            pair_weights(after, strength))
+    table, change, totals = scenario_change(before, after, pair_weights(before, patch_weight),
+                                            pair_weights(after, patch_weight))
     ctx.write_table("scenario_change.csv", table,
                     description="effective resistance of every pair before and after the change",
                     units="resistance x map unit; percent")
-    ctx.write_raster("scenario_current_change.tif", change, per_node=False,
-                     units="A (cumulative current after minus before)",
-                     description="change of the cumulative current through each cell caused by the change")
-    ctx.quicklook("scenario_current_change.png", change, title="Change of cumulative current",
+    ctx.write_raster("current_density_change.tif", change, per_node=False,
+                     units="A (current density after minus before)",
+                     description="change of the current density through each cell caused by the change")
+    ctx.quicklook("current_density_change.png", change, title="Change of current density",
                   units="A", log_scale=False)
     before_c, after_c = totals["connectivity_before"], totals["connectivity_after"]
     ctx.summary["scenario: overall connectivity before / after"] = (
