@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import argparse
 import logging
+import signal
 import sys
 
 from . import __version__
@@ -17,6 +18,9 @@ def _parser():
     parser.add_argument("--version", action="version", version=f"landflow {__version__}")
     common = argparse.ArgumentParser(add_help=False)
     common.add_argument("-q", "--quiet", action="store_true", help="print only warnings and errors")
+    common.add_argument("-v", "--verbose", action="store_true", help="also print debugging detail")
+    common.add_argument("--debug", action="store_true",
+                        help="on an unexpected error, print the full traceback")
     commands = parser.add_subparsers(dest="command", metavar="COMMAND")
     run = commands.add_parser("run", parents=[common], help="run a study and write its outputs")
     run.add_argument("study", help="study file (TOML)")
@@ -36,6 +40,10 @@ def _parser():
     batch.add_argument("--summary", metavar="PATH", default="batch_summary.csv",
                        help="where to write the summary table (default: batch_summary.csv in the current folder)")
     batch.add_argument("--force", action="store_true", help="rerun runs whose outputs are up to date")
+    verify = commands.add_parser(
+        "verify", parents=[common], help="check that a results folder's outputs are those its run wrote",
+        description="Compare every output listed in FOLDER/manifest.json with the SHA-256 recorded there.")
+    verify.add_argument("folder", help="output folder of a finished run")
     return parser
 
 
@@ -60,47 +68,91 @@ def _batch(args, studies, workers):
     return 1 if failed else 0
 
 
+class _Terminated(BaseException):
+    """SIGTERM, raised where the program is so that every run cleans up as on Ctrl-C."""
+
+
+def _on_sigterm(signum, frame):
+    raise _Terminated()
+
+
 def main(argv=None):
+    """The ``landflow`` command. Exit codes: 0 done, 1 failed, 2 usage, 130 interrupted, 143 terminated."""
     parser = _parser()
     args = parser.parse_args(argv)
     if args.command is None:
         parser.print_help()
         return 2
-    logging.basicConfig(level=logging.WARNING if args.quiet else logging.INFO,
-                        format="%(asctime)s %(levelname)s %(message)s", datefmt="%H:%M:%S", stream=sys.stderr)
-    from .study.run import check_study, run_study
+    level = logging.DEBUG if args.verbose else logging.WARNING if args.quiet else logging.INFO
+    logging.basicConfig(level=level, format="%(asctime)s %(levelname)s %(message)s", datefmt="%H:%M:%S",
+                        stream=sys.stderr)
+    logging.getLogger("landflow").setLevel(level)
+    previous = signal.signal(signal.SIGTERM, _on_sigterm)
     try:
-        if args.command == "batch":
-            # the progress display owns the terminal; each run's details are in its report.md
-            logging.getLogger("landflow").setLevel(logging.WARNING)
-            return _batch(args, args.studies, args.workers)
-        if args.command in ("run", "check") and _has_sweep(args.study):
-            from .study.sweep import expand_study
-            runs = expand_study(args.study)
-            if args.command == "check":
-                for run in runs:
-                    check_study(run.study)
-                print(f"landflow: {args.study} is valid: a sweep of {len(runs)} runs: "
-                      f"{', '.join(r.run_name for r in runs)}")
-                return 0
-            logging.getLogger("landflow").setLevel(logging.WARNING)
-            args.summary = str(runs[0].sweep_folder / "batch_summary.csv")
-            return _batch(args, [args.study], 0)
-        if args.command == "run":
-            manifest = run_study(args.study)
-            print(f"landflow: wrote {len(manifest['outputs'])} outputs to {manifest['folder']} "
-                  f"in {manifest['timings_seconds']['total']:.1f} s")
-        else:
-            summary = check_study(args.study)
-            print(f"landflow: {args.study} is valid: {summary['cells']:,} landscape cells, "
-                  f"{summary['patches']} patches, {summary['pieces']} connected piece(s); "
-                  f"analyses: {', '.join(summary['analyses'])}")
+        return _dispatch(args)
+    except KeyboardInterrupt:
+        print("landflow: interrupted; unfinished outputs were removed and earlier results left as they were.",
+              file=sys.stderr)
+        return 130
+    except _Terminated:
+        print("landflow: terminated; unfinished outputs were removed and earlier results left as they were.",
+              file=sys.stderr)
+        return 143
     except LandflowError as exc:
         print(f"landflow: error: {exc}", file=sys.stderr)
         return 1
     except OSError as exc:  # the file system refused (permissions, disk full): no traceback either
-        print(f"landflow: error: {exc}", file=sys.stderr)
+        where = f" ({exc.filename})" if getattr(exc, "filename", None) and str(exc.filename) not in str(exc) else ""
+        print(f"landflow: error: {exc}{where}", file=sys.stderr)
         return 1
+    except Exception as exc:  # a fault of landflow's own: one line, the traceback on request
+        if args.debug:
+            raise
+        print(f"landflow: error: {type(exc).__name__}: {exc} (an unexpected error; run with --debug for the "
+              "full traceback, and please report it)", file=sys.stderr)
+        return 1
+    finally:
+        signal.signal(signal.SIGTERM, previous)
+
+
+def _dispatch(args):
+    from .study.run import check_study, run_study
+    if args.command == "verify":
+        from .study.run import verify_folder
+        problems = verify_folder(args.folder)
+        for line in problems:
+            print(f"landflow: {args.folder}: {line}", file=sys.stderr)
+        if problems:
+            return 1
+        print(f"landflow: every output in {args.folder} is as its run wrote it")
+        return 0
+    if args.command == "batch":
+        # the progress display owns the terminal; each run's details are in its report.md
+        if not args.verbose:
+            logging.getLogger("landflow").setLevel(logging.WARNING)
+        return _batch(args, args.studies, args.workers)
+    if args.command in ("run", "check") and _has_sweep(args.study):
+        from .study.sweep import expand_study
+        runs = expand_study(args.study)
+        if args.command == "check":
+            for run in runs:
+                check_study(run.study)
+            print(f"landflow: {args.study} is valid: a sweep of {len(runs)} runs: "
+                  f"{', '.join(r.run_name for r in runs)}")
+            return 0
+        if not args.verbose:
+            logging.getLogger("landflow").setLevel(logging.WARNING)
+        args.summary = str(runs[0].sweep_folder / "batch_summary.csv")
+        return _batch(args, [args.study], 0)
+    if args.command == "run":
+        manifest = run_study(args.study)
+        print(f"landflow: wrote {len(manifest['outputs'])} outputs to {manifest['folder']} "
+              f"in {manifest['timings_seconds']['total']:.1f} s")
+    else:
+        summary = check_study(args.study)
+        print(f"landflow: {args.study} is valid: {summary['cells']:,} landscape cells, "
+              f"{summary['patches']} patches, {summary['pieces']} connected piece(s); "
+              f"analyses: {', '.join(summary['analyses'])}")
     return 0
 
 

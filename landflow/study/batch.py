@@ -86,8 +86,9 @@ def is_up_to_date(study):
     """True when ``study``'s output folder holds a manifest of exactly this study.
 
     The manifest must record the same landflow version, the same resolved
-    settings, and input files whose SHA-256 still match the files on disk,
-    and every output it lists must still be in the folder.
+    settings, and input files (relative to the study file) whose SHA-256 still
+    match the files on disk, and every output it lists (report.md included)
+    must still be in the folder with the SHA-256 the manifest records.
     """
     from .run import file_sha256
 
@@ -99,10 +100,13 @@ def is_up_to_date(study):
         return False
     if manifest.get("settings") != json.loads(json.dumps(study.resolved())):
         return False
+    base = study.path.parent if study.path else Path.cwd()
     try:
-        if not all((study.output_folder / item["file"]).is_file() for item in manifest.get("outputs", [])):
-            return False
-        return all(file_sha256(item["path"]) == item["sha256"] for item in manifest.get("inputs", []))
+        for item in manifest.get("outputs", []):
+            path = study.output_folder / item["file"]
+            if not path.is_file() or file_sha256(path) != item["sha256"]:
+                return False
+        return all(file_sha256(base / item["path"]) == item["sha256"] for item in manifest.get("inputs", []))
     except (OSError, KeyError, TypeError):
         return False
 
@@ -277,6 +281,34 @@ def _lost(exc):
             "error": f"the worker running it was lost: {type(exc).__name__}: {exc}"}
 
 
+def _worker_start():
+    """In each local worker: end with the batch process, and clean up on SIGTERM like a single run.
+
+    Linux delivers SIGTERM to the worker when the batch process dies (prctl
+    PR_SET_PDEATHSIG); elsewhere a watch thread notices the parent is gone.
+    """
+    import signal
+    import threading
+
+    def stop(signum, frame):
+        raise SystemExit(128 + signum)
+    signal.signal(signal.SIGTERM, stop)
+    parent = os.getppid()
+    try:
+        import ctypes
+        ctypes.CDLL("libc.so.6", use_errno=True).prctl(1, signal.SIGTERM)   # 1 = PR_SET_PDEATHSIG
+    except (OSError, AttributeError):
+        pass
+    if os.getppid() != parent:       # the batch died before prctl took effect
+        os._exit(143)
+
+    def watch():
+        while os.getppid() == parent:
+            time.sleep(1.0)
+        os.kill(os.getpid(), signal.SIGTERM)
+    threading.Thread(target=watch, daemon=True).start()
+
+
 def _run_on_processes(todo, workers, outcomes, progress):
     import multiprocessing
     from concurrent.futures import ProcessPoolExecutor
@@ -288,11 +320,14 @@ def _run_on_processes(todo, workers, outcomes, progress):
             return _lost(exc)
 
     # spawn: a clean interpreter per worker, safe whatever threads this process holds
-    with ProcessPoolExecutor(max_workers=workers, mp_context=multiprocessing.get_context("spawn")) as pool:
+    with ProcessPoolExecutor(max_workers=workers, mp_context=multiprocessing.get_context("spawn"),
+                             initializer=_worker_start) as pool:
         pending = {pool.submit(execute_run, run.study): run for run in todo}
         try:
             _collect(pending, workers, outcomes, progress, result_of)
         except BaseException:   # interrupted: drop the queued runs; running ones clean up after themselves
+            for process in list(getattr(pool, "_processes", {}).values()):
+                process.terminate()          # SIGTERM: each worker removes its unfinished outputs
             pool.shutdown(wait=False, cancel_futures=True)
             raise
 

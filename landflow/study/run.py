@@ -7,7 +7,6 @@ import json
 import logging
 import os
 import platform
-import shutil
 import sys
 import time
 import warnings
@@ -26,8 +25,9 @@ from ..io.rasters import read_aligned, read_grid, write_geotiff
 from ..io.sites import patch_weight_from_raster, read_patch_points, read_patch_raster
 from ..io.tables import write_csv
 from .config import Study, load_study
+from .folder import OutputFolder, check_output_folder, is_landflow_manifest
 
-__all__ = ["run_study", "check_study", "RunContext", "CAUTION"]
+__all__ = ["run_study", "check_study", "verify_folder", "protected_paths", "RunContext", "CAUTION"]
 
 log = logging.getLogger("landflow")
 
@@ -266,15 +266,46 @@ class _Timer:
 
 
 def check_study(study):
-    """Validate a study and its inputs without solving; returns a short summary dict."""
+    """Validate a study and its inputs without solving; returns a short summary dict.
+
+    The output folder is checked by the rules a run applies (see
+    :mod:`landflow.study.folder`), and leftovers of stopped runs in it are repaired.
+    """
     study = study if isinstance(study, Study) else load_study(study)
-    ctx = RunContext(study, study.output_folder)
     _check_writable(study)
+    folder = check_output_folder(study.output_folder, protected=protected_paths(study), source=_source(study))
+    if folder.exists():
+        with OutputFolder(folder, protected=protected_paths(study), source=_source(study), stage=False):
+            pass
+    ctx = RunContext(study, study.output_folder)
     _check_steps(ctx)
     graph = ctx.graph
     return {"cells": graph.n_cells, "nodes": graph.n_nodes,
             "patches": graph.n_patches, "pieces": graph.n_pieces,
             "analyses": list(study.analyses), "warnings": ctx.warnings}
+
+
+def _source(study):
+    return str(study.path) if study.path else "study"
+
+
+def protected_paths(study):
+    """The study file and every input file it names: an output folder may neither be nor contain them."""
+    found = [study.path] if study.path else []
+
+    def walk(value):
+        if isinstance(value, Path):
+            found.append(value)
+        elif isinstance(value, dict):
+            for v in value.values():
+                walk(v)
+        elif isinstance(value, (list, tuple)):
+            for v in value:
+                walk(v)
+    for section, keys in study.settings.items():
+        walk({k: v for k, v in keys.items() if (section, k) != ("output", "folder")})
+    walk(study.analyses)
+    return found
 
 
 def _check_steps(ctx):
@@ -319,23 +350,18 @@ def run_study(study):
 
     Notes
     -----
-    Outputs are written into a hidden temporary folder beside the output
-    folder, which replaces the output folder only when every step succeeded.
-    A failed run leaves any earlier finished output untouched.
+    Outputs are written into a staging folder inside the output folder and
+    replace the previous run's outputs only when every step succeeded; files
+    that landflow did not write are never touched. The protocol, and how a
+    stopped run is repaired, is described in :mod:`landflow.study.folder`.
     """
     from .steps import ANALYSES
 
     study = study if isinstance(study, Study) else load_study(study)
     _check_writable(study)
-    final = study.output_folder
-    final.parent.mkdir(parents=True, exist_ok=True)
-    tmp = final.with_name(f".{final.name}.partial-{os.getpid()}")
-    if tmp.exists():
-        shutil.rmtree(tmp)
-    tmp.mkdir()
     started = time.perf_counter()
-    try:
-        ctx = RunContext(study, tmp)
+    with OutputFolder(study.output_folder, protected=protected_paths(study), source=_source(study)) as out:
+        ctx = RunContext(study, out.staging)
         _check_steps(ctx)
         if ctx.from_suitability:
             ctx.write_raster("resistance_from_suitability.tif", np.where(ctx.grid.mask, ctx.grid.values, np.nan),
@@ -344,29 +370,47 @@ def run_study(study):
         for name, settings in study.analyses.items():
             with ctx.timed(name):
                 ANALYSES[name].run(ctx, settings)
-        manifest = _manifest(ctx, time.perf_counter() - started)
+        manifest = _manifest(ctx, time.perf_counter() - started, run_id=out.run_id)
         from ..report import write_report
-        write_report(tmp / "report.md", manifest, CAUTION)
-        with open(tmp / "manifest.json", "w", encoding="utf-8") as fh:
+        write_report(out.staging / "report.md", manifest, CAUTION)
+        manifest["outputs"].append({"file": "report.md", "description": "a plain account of the run",
+                                    "units": "", "sha256": file_sha256(out.staging / "report.md")})
+        with open(out.staging / "manifest.json", "w", encoding="utf-8") as fh:
             json.dump(manifest, fh, indent=2, sort_keys=False)
             fh.write("\n")
-        _replace_folder(tmp, final)
-    except BaseException:
-        shutil.rmtree(tmp, ignore_errors=True)
-        raise
+        out.commit([item["file"] for item in manifest["outputs"]] + ["manifest.json"])
+    final = out.folder
     manifest["folder"] = str(final)
     log.info("results written to %s", final)
     return manifest
 
 
-def _replace_folder(tmp, final):
-    old = None
-    if final.exists():
-        old = final.with_name(f".{final.name}.old-{os.getpid()}")
-        os.replace(final, old)
-    os.replace(tmp, final)
-    if old is not None:
-        shutil.rmtree(old, ignore_errors=True)
+def verify_folder(folder):
+    """Compare every output a results folder's manifest lists with its SHA-256.
+
+    Returns
+    -------
+    list of str
+        One line per output that is missing or changed; empty when all match.
+
+    Raises
+    ------
+    InputError
+        The folder holds no landflow manifest.
+    """
+    folder = Path(folder)
+    manifest_path = folder / "manifest.json"
+    if not is_landflow_manifest(manifest_path):
+        raise InputError(f"{folder}: no landflow manifest.json there; give the output folder of a finished run.")
+    manifest = json.loads(manifest_path.read_text(encoding="utf-8"))
+    problems = []
+    for item in manifest["outputs"]:
+        path = folder / item["file"]
+        if not path.is_file():
+            problems.append(f"missing: {item['file']}")
+        elif "sha256" in item and file_sha256(path) != item["sha256"]:
+            problems.append(f"changed since the run: {item['file']}")
+    return problems
 
 
 def _command():
@@ -379,7 +423,7 @@ def _command():
     return " ".join(sys.argv) if first.stem == "landflow" else None
 
 
-def _manifest(ctx, seconds):
+def _manifest(ctx, seconds, run_id=None):
     versions = {"python": platform.python_version()}
     for dep in _DEPENDENCIES:
         try:
@@ -390,13 +434,16 @@ def _manifest(ctx, seconds):
     shared = [("patch voltages (effective resistance, current)", s) for s in ctx.voltages.solvers] \
         if "voltages" in ctx.__dict__ else []
     solvers = [{"purpose": purpose, **s.record()} for purpose, s in shared + ctx.solvers]
+    base = ctx.study.path.parent if ctx.study.path else Path.cwd()
+    outputs = [{**item, "sha256": file_sha256(ctx.folder / item["file"])} for item in ctx.outputs]
     return {
         "landflow_version": __version__,
+        "run_id": run_id,
         "study_file": str(ctx.study.path) if ctx.study.path else None,
         "command": _command(),
         "versions": versions,
         "platform": platform.platform(),
-        "inputs": [{"path": p, "sha256": h} for p, h in ctx.inputs.items()],
+        "inputs": [{"path": os.path.relpath(p, base), "sha256": h} for p, h in ctx.inputs.items()],
         "settings": ctx.study.resolved(),
         "sweep": dict(ctx.study.variation) or None,
         "landscape": {"rows": graph.shape[0], "cols": graph.shape[1],
@@ -405,7 +452,7 @@ def _manifest(ctx, seconds):
                       "cells": graph.n_cells, "nodes": graph.n_nodes, "edges": graph.n_edges,
                       "patches": [int(p) for p in graph.patch_ids], "pieces": graph.n_pieces},
         "solvers": solvers,
-        "outputs": ctx.outputs,
+        "outputs": outputs,
         "summary": ctx.summary,
         "warnings": ctx.warnings,
         "timings_seconds": {**ctx.timings, "total": round(seconds, 3)},

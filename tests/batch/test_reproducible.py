@@ -41,10 +41,14 @@ def test_manifest_hashes_match_the_input_files(landscape):
     run_study(study)
     manifest = json.loads((landscape / "results" / "manifest.json").read_text())
     recorded = {item["path"]: item["sha256"] for item in manifest["inputs"]}
-    expected = {str((landscape / name).resolve()) for name in ("suitability.tif", "patches.tif")}
-    assert set(recorded) == expected
+    assert set(recorded) == {"suitability.tif", "patches.tif"}     # relative to the study file
     for path, digest in recorded.items():
-        assert hashlib.sha256(open(path, "rb").read()).hexdigest() == digest     # hashlib, independent of landflow
+        assert hashlib.sha256((landscape / path).read_bytes()).hexdigest() == digest  # hashlib, not landflow
+    # every output, report.md included, with the SHA-256 of its bytes
+    outputs = {item["file"]: item["sha256"] for item in manifest["outputs"]}
+    assert "report.md" in outputs and "effective_resistance.csv" in outputs
+    for name, digest in outputs.items():
+        assert hashlib.sha256((landscape / "results" / name).read_bytes()).hexdigest() == digest
     # everything a second person needs to rerun it
     for field in ("landflow_version", "versions", "settings", "solvers", "timings_seconds"):
         assert manifest[field]
