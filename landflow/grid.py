@@ -19,7 +19,7 @@ class Grid:
     Parameters
     ----------
     values : ndarray, shape (rows, cols)
-        Cell values, float64.
+        Cell values: float64, or int64 for exact integer labels (patch rasters).
     mask : ndarray of bool, shape (rows, cols)
         True where a cell is inside the landscape (not nodata, finite).
     transform : affine.Affine
@@ -42,7 +42,8 @@ class Grid:
     nodata: float | None = None
 
     def __post_init__(self):
-        self.values = np.asarray(self.values, dtype=np.float64)
+        values = np.asarray(self.values)
+        self.values = values if values.dtype == np.int64 else values.astype(np.float64, copy=False)
         self.mask = np.asarray(self.mask, dtype=bool)
         if self.values.ndim != 2:
             raise InputError(

@@ -284,6 +284,8 @@ def factorize(matrix, *, method="auto", tolerance=1e-8, n_rhs=1, ordering=None):
     """
     if method not in METHODS:
         raise SolverError(f"solver method must be one of {', '.join(METHODS)}; got {method!r}.")
+    if not 0.0 < tolerance < 1.0:
+        raise SolverError(f"tolerance must be a relative residual between 0 and 1, such as 1e-8; got {tolerance!r}.")
     if method == "auto":
         method = choose_method(matrix.shape[0], n_rhs)
     engine = None
@@ -294,7 +296,46 @@ def factorize(matrix, *, method="auto", tolerance=1e-8, n_rhs=1, ordering=None):
         if engine == "pardiso" and direct_engine() != "pardiso":
             raise SolverError("solver method 'pardiso' needs the optional package pypardiso "
                               "(pip install 'landflow[fast]', x86-64 only); use 'direct' or 'superlu' instead.")
-    return Solver(sp.csr_array(matrix), method, tolerance, engine=engine, ordering=ordering)
+    matrix = sp.csr_array(matrix)
+    _check_grounded(matrix)
+    return Solver(matrix, method, tolerance, engine=engine, ordering=ordering)
+
+
+def _check_grounded(matrix):
+    """Refuse a system with a connected piece that no node ties to ground, from its structure alone.
+
+    A grounded Laplacian is a symmetric M-matrix whose row sums are the
+    conductances to ground. A connected piece of its graph is singular exactly
+    when no row of the piece has a positive sum (Kirchhoff's matrix-tree
+    theorem; e.g. Biggs 1993, Algebraic Graph Theory, ch. 6, from memory), so
+    this is decided before any factorisation, for every engine, without
+    relying on a pivot meeting an exact zero. A row counts as tied to ground
+    when its sum exceeds 1e-12 of its diagonal, above rounding of the sum.
+    """
+    from scipy.sparse.csgraph import connected_components
+
+    n = matrix.shape[0]
+    if n == 0:
+        return
+    diagonal = matrix.diagonal()
+    if np.any(diagonal <= 0) or not np.all(np.isfinite(diagonal)):
+        row = int(np.flatnonzero(~(diagonal > 0))[0]) if np.any(~(diagonal > 0)) else \
+            int(np.flatnonzero(~np.isfinite(diagonal))[0])
+        raise SolverError(f"the system's unknown {row} has diagonal {float(diagonal[row])!r}; a grounded Laplacian "
+                          f"needs a positive, finite diagonal. {_SINGULAR}")
+    excess = diagonal - (abs(matrix).sum(axis=1) - diagonal)
+    tied = excess > 1e-12 * diagonal
+    if tied.all():
+        return
+    count, piece = connected_components(matrix, directed=False)
+    grounded = np.zeros(count, dtype=bool)
+    grounded[piece[tied]] = True
+    if not grounded.all():
+        loose = np.flatnonzero(~grounded)
+        sizes = np.bincount(piece, minlength=count)[loose]
+        raise SolverError(f"{loose.size} connected piece(s) of the system ({int(sizes.sum())} unknowns, the "
+                          f"first being unknown {int(np.flatnonzero(piece == loose[0])[0])}) have no tie to "
+                          f"ground, so the system has no unique solution. {_SINGULAR}")
 
 
 def _point_pypardiso_at_mkl():

@@ -1,5 +1,6 @@
 """Bad input: each a clear error naming the file, key or cell, and the fix; no partial output left."""
 
+import os
 import re
 
 import numpy as np
@@ -249,7 +250,7 @@ def test_unknown_key_suggests_the_close_match(study, landscape, extra, message):
      r"Did you mean 'mean_resistance'\?"),
     ('resistance = 3', "", r"'landscape\.resistance' must be text, got int 3"),
     ('resistance = "resistance.tif"', '[solver]\ntolerance = "small"', r"'solver\.tolerance' must be a number, got str"),
-    ('resistance = "resistance.tif"', '[solver]\ntolerance = -1', r"'solver\.tolerance' = -1\.0: must be greater than 0"),
+    ('resistance = "resistance.tif"', '[solver]\ntolerance = -1', r"'solver\.tolerance' = -1\.0: must be between 0 and 1"),
     ('resistance = "resistance.tif"', '[analyses.current_density.x]\n',
      r"'analyses\.current_density\.x'|unknown key 'x' in \[analyses\.current_density\]"),
     ('resistance = "resistance.tif"\nconductance = "resistance.tif"', "",
@@ -388,3 +389,69 @@ def test_cli_main_reports_each_error_on_one_line(study, tmp_path, tif, capsys, c
     assert out == ""
     assert re.fullmatch(r"landflow: error: .*" + message + r".*\n", err)
     assert not [p.name for p in tmp_path.iterdir() if p.name.startswith(".") or p.name == "results"]
+
+
+@pytest.mark.parametrize("extra, message", [
+    ("[solver]\ntolerance = inf", r"'solver\.tolerance' must be a finite number, got inf"),
+    ("[solver]\ntolerance = nan", r"'solver\.tolerance' must be a finite number, got nan"),
+    ("[solver]\ntolerance = 1.5", r"'solver\.tolerance' = 1\.5: must be between 0 and 1"),
+    ("[solver]\ntolerance = 0.0", r"'solver\.tolerance' = 0\.0: must be between 0 and 1"),
+    ("[analyses.walk_simulation]\nseed = -1", r"'analyses\.walk_simulation\.seed' = -1: must be a whole number 0 "
+                                              r"or more"),
+])
+def test_settings_are_blamed_by_their_key(study, extra, message):
+    # non-finite numbers and out-of-range settings name the key, before any raster is read
+    with pytest.raises(lf.ConfigError, match=r"study\.toml: " + message):
+        load_study(study(extra=extra))
+
+
+def test_the_api_refuses_a_tolerance_outside_zero_to_one():
+    from landflow.solve import factorize
+    import scipy.sparse as sp
+    with pytest.raises(lf.SolverError, match=r"tolerance must be a relative residual between 0 and 1"):
+        factorize(sp.identity(3, format="csr"), method="multigrid", tolerance=float("inf"))
+
+
+@pytest.mark.parametrize("make, words", [
+    (lambda d: "/dev/zero", "not a regular file"),
+    (lambda d: (os.mkfifo(d / "pipe.tif"), "pipe.tif")[1], "not a regular file"),
+    (lambda d: ((d / "folder.tif").mkdir(), "folder.tif")[1], "a folder"),
+])
+def test_an_input_that_is_not_a_regular_file_is_refused_without_reading_it(study, tmp_path, make, words):
+    # reading a device or a pipe would block forever while the file is hashed
+    name = make(tmp_path)
+    with pytest.raises(lf.ConfigError, match=rf"'landscape\.resistance' names '{name}', which is {words}"):
+        load_study(study(landscape=f'resistance = "{name}"'))
+
+
+def test_patch_ids_above_two_to_the_53_stay_exact(study, tif):
+    # through float64, 2^53 + 1 would become 2^53 and two patches would merge
+    labels = np.zeros((6, 8), dtype=np.int64)
+    labels[1, 1:3] = 1
+    labels[4, 5:7] = 2
+    big = labels.copy()
+    big[big == 1] = 2 ** 53 + 1
+    big[big == 2] = 2 ** 53
+    tif("patches.tif", big, nodata=0, dtype="int64")
+    summary = lf.check_study(study())
+    assert summary["patches"] == 2
+    patches = lf.read_patch_raster(study().parent / "patches.tif", lf.read_grid(study().parent / "resistance.tif"))
+    assert set(patches.ids.tolist()) == {2 ** 53, 2 ** 53 + 1}
+
+
+def test_a_raster_without_georeferencing_is_refused_unless_the_study_says_so(study, tmp_path):
+    import rasterio
+    values = np.ones((6, 8), dtype="uint8")
+    with rasterio.open(tmp_path / "picture.tif", "w", driver="PNG", width=8, height=6, count=1,
+                       dtype="uint8") as dst:
+        dst.write(values, 1)
+    with pytest.raises(lf.InputError, match=r"picture\.tif: the resistance raster has no georeferencing \(no "
+                                            r"transform and no CRS; a PNG file\).*plain_grid_ok = true"):
+        lf.check_study(study(landscape='resistance = "picture.tif"'))
+
+
+def test_a_truncated_geotiff_names_the_file_and_the_fix(study, tmp_path):
+    data = (tmp_path / "resistance.tif").read_bytes()
+    (tmp_path / "cut.tif").write_bytes(data[: len(data) // 2])
+    with pytest.raises(lf.InputError, match=r"cannot read the resistance raster '.*cut\.tif': .*export it again"):
+        lf.check_study(study(landscape='resistance = "cut.tif"'))

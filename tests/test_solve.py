@@ -57,30 +57,44 @@ needs_pardiso = pytest.mark.skipif(direct_engine() != "pardiso",
 
 
 class TestFailures:
-    @pytest.mark.parametrize("engine", ["superlu", pytest.param("pardiso", marks=needs_pardiso)])
-    def test_exactly_singular_system_fails_to_factorise(self, engine):
+    @pytest.mark.parametrize("engine", ["superlu", "multigrid", pytest.param("pardiso", marks=needs_pardiso)])
+    def test_an_isolated_node_is_refused_before_factorising(self, engine):
         matrix = sp.csr_array(np.diag([1.0, 0.0, 2.0]))     # an isolated, ungrounded node
-        with pytest.raises(lf.SolverError, match=rf"direct factorisation \({engine}\) failed: .*singular.*grounded"):
+        with pytest.raises(lf.SolverError, match=r"unknown 1 has diagonal 0\.0; a grounded Laplacian needs a "
+                                                 r"positive, finite diagonal\. The system is singular"):
             factorize(matrix, method=engine)
 
-    def test_ungrounded_unit_laplacian_is_exactly_singular(self):
-        laplacian = lf.build_graph(lf.Grid.from_array(np.ones((6, 6)))).laplacian()
-        with pytest.raises(lf.SolverError, match="Factor is exactly singular. The system is singular"):
-            factorize(laplacian, method="superlu")
+    @pytest.mark.parametrize("engine", ["superlu", "multigrid", pytest.param("pardiso", marks=needs_pardiso)])
+    @pytest.mark.parametrize("values", ["unit", "lognormal"])
+    def test_an_ungrounded_laplacian_is_refused_before_factorising(self, engine, values):
+        # decided from the structure (a piece without a tie to ground), whatever the rounding or the pivots
+        grid = np.ones((6, 6)) if values == "unit" else np.random.default_rng(0).lognormal(size=(6, 6))
+        laplacian = lf.build_graph(lf.Grid.from_array(grid)).laplacian()
+        with pytest.raises(lf.SolverError, match=r"1 connected piece\(s\) of the system \(36 unknowns, the first "
+                                                 r"being unknown 0\) have no tie to ground"):
+            factorize(laplacian, method=engine)
 
-    def test_ungrounded_laplacian_fails_its_residual_check(self):
-        # with irrational conductances rounding hides the zero pivot; the residual check catches it
-        values = np.random.default_rng(0).lognormal(size=(6, 6))
-        laplacian = lf.build_graph(lf.Grid.from_array(values)).laplacian()
-        b = np.zeros(36)
-        b[0] = 1.0                                            # current in, none out: no solution
-        for method, fix in [("superlu", "singular or nearly so"), ("multigrid", "Try solver method 'direct'")]:
-            solver = factorize(laplacian, method=method)
-            # pyamg's CG notices the indefinite system and warns (its own filter shows the warning always)
-            noticed = pytest.warns(UserWarning, match="Indefinite") if method == "multigrid" else nullcontext()
-            with noticed, pytest.raises(lf.SolverError, match=rf"{solver.method} solve reached relative residual .*{fix}") as err:
-                solver.solve(b)
-            assert err.value.residual > 1e-6
+    def test_a_grounded_piece_beside_an_ungrounded_one_is_refused(self):
+        laplacian = lf.build_graph(lf.Grid.from_array(np.ones((4, 4)))).laplacian().tocsr()
+        grounded = laplacian[1:, 1:]                         # node 0 grounded: the rest is fine
+        both = sp.block_diag([grounded, laplacian], format="csr")
+        assert factorize(grounded, method="superlu").method == "direct"
+        with pytest.raises(lf.SolverError, match=r"1 connected piece\(s\) of the system \(16 unknowns, the first "
+                                                 r"being unknown 15\)"):
+            factorize(both, method="superlu")
+
+    @pytest.mark.parametrize("method", ["superlu", "multigrid"])
+    def test_every_solve_is_checked_against_its_residual_limit(self, grounded, method, monkeypatch):
+        solver = factorize(grounded, method=method)
+        b = _rhs(grounded.shape[0], 2)
+        good = solver.solve(b)
+        wrong = good.copy()
+        wrong[:, 1] *= 1.01                                   # one bad column among good ones
+        monkeypatch.setattr(solver, "_lu" if method == "superlu" else "_ml", _Returns(wrong, method))
+        fix = "singular or nearly so" if method == "superlu" else "Try solver method 'direct'"
+        with pytest.raises(lf.SolverError, match=rf"solve reached relative residual .*{fix}") as err:
+            solver.solve(b)
+        assert err.value.residual > 1e-6
 
     def test_tolerance_that_cannot_be_met(self, grounded):
         solver = factorize(grounded[:400, :400], method="multigrid", tolerance=1e-30)
@@ -135,3 +149,18 @@ class TestRecord:
         solver = factorize(grounded, method="direct")
         solver.solve(np.ones(grounded.shape[0]))
         assert json.loads(json.dumps(solver.record())) == solver.record()
+
+
+class _Returns:
+    """Stands in for a factor or hierarchy that returns a given (wrong) solution."""
+
+    def __init__(self, x, method):
+        self.x, self.method, self.column = x, method, 0
+
+    def solve(self, b, **kwargs):
+        if self.method == "superlu":
+            return self.x
+        column = self.x[:, self.column % self.x.shape[1]]
+        self.column += 1
+        kwargs.get("residuals", []).extend([1.0, 0.0])
+        return column

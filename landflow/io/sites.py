@@ -37,13 +37,18 @@ class Patches:
 
 def read_patch_raster(path, grid):
     """Patch labels from an integer raster on the same grid (0 or nodata = no patch)."""
-    src = read_aligned(path, grid, what="patch raster")
-    values = np.where(src.mask, src.values, 0.0)
-    bad = (values != np.round(values)) | (values < 0)
+    src = read_aligned(path, grid, what="patch raster", integer=True)
+    values = np.where(src.mask, src.values, 0)
+    if np.issubdtype(values.dtype, np.integer):            # read exactly, whatever the size of the labels
+        bad = values < 0
+    else:
+        with np.errstate(invalid="ignore"):
+            bad = ~np.isfinite(values) | (values != np.round(values)) | (values < 0) | (np.abs(values) > 2.0 ** 53)
     if bad.any():
         rows, cols = np.nonzero(bad)
         raise InputError(f"{path}: {bad.sum()} cell(s) are not whole non-negative numbers; patch labels "
-                         f"must be integers, 0 for no patch. First at {grid.where(rows[0], cols[0])}.")
+                         f"must be integers, 0 for no patch (a float raster keeps them exact only up to "
+                         f"2^53; store labels as integers). First at {grid.where(rows[0], cols[0])}.")
     return Patches(values.astype(np.int64), None, str(path))
 
 

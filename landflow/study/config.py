@@ -35,6 +35,10 @@ def _suitability_rules(land):
     return None
 
 
+def _tolerance(value):
+    return None if 0.0 < value < 1.0 else "must be between 0 and 1 (a relative residual, such as 1e-8)"
+
+
 def _non_negative(value):
     return None if value >= 0 else "must be 0 or more"
 
@@ -75,6 +79,8 @@ SECTIONS = {
                                           check=_above_one, unit="resistance per map unit"),
         "neighbours": Key(int, 8, "cells joined to each cell: 8 (with diagonals) or 4", choices=NEIGHBOURS,
                           unit="cells"),
+        "plain_grid_ok": Key(bool, False, "accept a landscape raster without georeferencing (no transform and "
+                                          "no CRS, such as a PNG): its cells are then 1 x 1 map units"),
         "edge_rule": Key(str, "mean_resistance", "how two cells' values make an edge's conductance",
                          choices=EDGE_RULES),
     }, "The surface the walk moves over: a resistance, conductance or habitat suitability raster.",
@@ -100,7 +106,7 @@ SECTIONS = {
        "mortality on patch cells is ignored.", check=_mortality_rules),
     "solver": Section({
         "method": Key(str, "auto", "linear solver: auto, direct (sparse LU) or multigrid (AMG + CG)", choices=METHODS),
-        "tolerance": Key(float, 1e-8, "relative residual target of iterative solves", check=_positive,
+        "tolerance": Key(float, 1e-8, "relative residual target of iterative solves", check=_tolerance,
                          unit="relative residual"),
     }, "How the linear systems are solved."),
     "output": Section({

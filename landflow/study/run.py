@@ -65,9 +65,11 @@ class RunContext:
         with self.timed("read inputs"):
             if self.from_suitability:
                 self.grid = _grid_from_suitability(read_grid(self._input(land["suitability"]),
-                                                             what="suitability raster"), land)
+                                                             what="suitability raster",
+                                                             plain_grid_ok=land["plain_grid_ok"]), land)
             else:
-                self.grid = read_grid(self._input(land[kind]), what=f"{kind} raster")
+                self.grid = read_grid(self._input(land[kind]), what=f"{kind} raster",
+                                      plain_grid_ok=land["plain_grid_ok"])
             self.kind = kind
             spec = self.study.settings["patches"]
             if spec["raster"] is not None:
@@ -231,6 +233,8 @@ class RunContext:
 
 def file_sha256(path):
     """The SHA-256 of a file's bytes as hex, read in 1 MB chunks (the manifest's input hashes)."""
+    if not Path(path).is_file():
+        raise InputError(f"{path}: not a regular file (a folder, device or pipe); give the path of a file.")
     digest = hashlib.sha256()
     with open(path, "rb") as fh:
         for chunk in iter(lambda: fh.read(1 << 20), b""):

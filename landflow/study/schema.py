@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import difflib
+import math
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Callable
@@ -107,6 +108,9 @@ def _check_value(value, key, label, base_dir, source):
     if not ok:
         raise ConfigError(f"{source}: '{label}' must be {_TYPE_NAMES.get(expected, expected.__name__)}, "
                           f"got {_show(value)}.")
+    if expected is float and not math.isfinite(value):
+        raise ConfigError(f"{source}: '{label}' must be a finite number, got {value!r}. Give a number such as "
+                          f"{key.default if isinstance(key.default, float) else 1.0!r}.")
     if key.choices is not None and value not in key.choices:
         raise ConfigError(f"{source}: '{label}' must be one of {', '.join(map(repr, key.choices))}; "
                           f"got {value!r}.{close_match(str(value), map(str, key.choices))}")
@@ -120,6 +124,10 @@ def _check_value(value, key, label, base_dir, source):
         if key.path == "input" and not value.exists():
             raise ConfigError(f"{source}: '{label}' names '{path}', which does not exist "
                               f"(looked for {value}). Paths are relative to the study file.")
+        if key.path == "input" and not value.is_file():
+            kind = "a folder" if value.is_dir() else "not a regular file (a device, pipe or socket)"
+            raise ConfigError(f"{source}: '{label}' names '{path}', which is {kind}. Give the path of a "
+                              "file.")
     return value
 
 

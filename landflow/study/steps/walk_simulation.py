@@ -17,7 +17,8 @@ NAME = "walk_simulation"
 QUANTILES = (0.05, 0.25, 0.5, 0.75, 0.95)
 SETTINGS = Section({
     "walkers": Key(int, 1000, "walkers released from each patch", check=_at_least(2)),
-    "seed": Key(int, 0, "seed of the random numbers; the same seed gives the same walks"),
+    "seed": Key(int, 0, "seed of the random numbers (a whole number >= 0); the same seed gives the same walks",
+                check=lambda v: None if v >= 0 else "must be a whole number 0 or more, such as 1"),
     "max_steps": Key(int, 1_000_000, "walkers still walking after this many steps are counted as unfinished",
                      check=_at_least(1)),
     "release_patches": Key(list, [], "patch ids to release walkers from; empty = every patch",
