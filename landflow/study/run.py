@@ -123,11 +123,19 @@ class RunContext:
             self.warn("the landscape falls apart into pieces that no walk can cross; patches in different "
                       f"pieces have infinite effective resistance. Groups: {' | '.join(groups)}")
 
-    @property
+    @cached_property
     def patch_weight(self):
-        """Per-patch weight in graph order, or None."""
+        """Per-patch weight in graph order, or None; warns once when every weight is 0."""
         s = self.patches.weight
-        return None if s is None else np.array([s[int(p)] for p in self.graph.patch_ids])
+        if s is None:
+            return None
+        weight = np.array([s[int(p)] for p in self.graph.patch_ids])
+        if not np.any(weight > 0):
+            spec = self.study.settings["patches"]
+            key = "patches.weight_raster" if spec.get("weight_raster") is not None else "patches.weight_column"
+            self.warn(f"every patch weight from '{key}' is 0, so every pair weighs 0 and weighted maps and sums "
+                      "are all 0. Check the weights, or set 'use_patch_weights = false' in the analyses.")
+        return weight
 
     # -- shared solves -------------------------------------------------------
     @cached_property
