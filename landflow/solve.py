@@ -413,7 +413,10 @@ def _relative_residual(matrix, x, b):
 
     Column by column, so that a badly solved right-hand side is not averaged away by well solved ones.
     """
-    norm_r = np.atleast_1d(np.linalg.norm(b - matrix @ x, axis=0))
+    if x.ndim == 1:
+        norm_r = np.atleast_1d(np.linalg.norm(b - matrix @ x))
+    else:   # one product per column: no copy of a column-major solution into row-major order
+        norm_r = np.array([np.linalg.norm(b[:, j] - matrix @ x[:, j]) for j in range(x.shape[1])])
     norm_b = np.atleast_1d(np.linalg.norm(b, axis=0))
     relative = np.divide(norm_r, norm_b, out=norm_r.copy(), where=norm_b > 0)
     return float(relative.max()) if relative.size else 0.0
