@@ -79,9 +79,14 @@ class RunContext:
             spec = self.study.settings["patches"]
             if spec["raster"] is not None:
                 self.patches = read_patch_raster(self._input(spec["raster"]), self.grid)
+            elif spec["vector"] is not None:
+                from ..io.vector import read_patch_vector
+                self.patches = read_patch_vector(self._input(spec["vector"]), self.grid, layer=spec["layer"],
+                                                 id_column=spec["id_column"], weight_column=spec["weight_column"],
+                                                 all_touched=spec["all_touched"])
             else:
                 self.patches = read_patch_points(self._input(spec["points"]), self.grid,
-                                                 weight_column=spec["weight_column"])
+                                                 weight_column=spec["weight_column"], crs=spec["points_crs"])
             if spec["weight_raster"] is not None:
                 self.patches.weight = patch_weight_from_raster(
                     self._input(spec["weight_raster"]), self.grid, self.patches)
