@@ -60,6 +60,7 @@ class RunContext:
         self.solvers = []
         self.step = None
         self.shared_users = {}
+        self.tables = {}
         self._load()
 
     # -- inputs ---------------------------------------------------------------
@@ -266,6 +267,25 @@ class RunContext:
     def write_table(self, name, table, *, description, units="see docs/outputs.md", **kwargs):
         path = self._record(name, description, units)
         write_csv(path, table, **kwargs)
+        self.tables[name] = table
+
+    def write_vector_results(self):
+        """connectivity.gpkg: patches as polygons and links between them as lines, with their tables' numbers."""
+        links = self.tables.get("effective_resistance.csv")
+        if links is None:
+            return
+        links = links.copy()
+        for name, columns in [("corridor_ranking.csv", ["rank", "connectivity_drop", "connectivity_drop_share"]),
+                              ("least_cost_distance.csv", ["least_cost_distance", "path_length"])]:
+            table = self.tables.get(name)
+            if table is not None:
+                links = links.merge(table[["patch_a", "patch_b"] + columns], on=["patch_a", "patch_b"], how="left")
+        from ..io.vector import write_results_geopackage
+        path = self._record("connectivity.gpkg", "patches as polygons (layer patches) and the links between "
+                            "every pair as lines with effective resistance, escape probabilities, commute time "
+                            "and, when computed, least-cost distance and rank (layer links)",
+                            "as in the CSV tables; map units")
+        write_results_geopackage(path, self.grid, self.patches.labels, links=links)
 
     def quicklook(self, name, array, *, title, units, log_scale=True, categorical=False):
         if not self.study.settings["output"]["quicklooks"]:
@@ -422,6 +442,9 @@ def run_study(study):
             with ctx.timed(name):
                 ANALYSES[name].run(ctx, settings)
         ctx.step = None
+        if ctx.grid.crs is not None:
+            with ctx.timed("vector results"):
+                ctx.write_vector_results()
         manifest = _manifest(ctx, time.perf_counter() - started, run_id=out.run_id)
         from ..report import write_report
         write_report(out.staging / "report.md", manifest, CAUTION)

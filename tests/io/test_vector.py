@@ -118,3 +118,35 @@ def test_a_file_with_several_layers_needs_one_named(utm_landscape):
         read_patch_vector(utm_landscape / "two.gpkg", grid)
     with pytest.raises(lf.InputError, match=r"two\.gpkg has no layer 'lakes'; its layers are ponds, wells"):
         read_patch_vector(utm_landscape / "two.gpkg", grid, layer="lakes")
+
+
+def test_the_results_geopackage_matches_the_csv_tables(utm_landscape):
+    # read back with pyogrio, independently of landflow's writer: layers, geometry types, CRS, rows, values
+    import pyogrio
+    rows = [(pid, *centre(*rc)) for pid, rc in SITES.items()]
+    pd.DataFrame(rows, columns=["id", "x", "y"]).to_csv(utm_landscape / "sites.csv", index=False)
+    study = write_study(utm_landscape, 'points = "sites.csv"', "gp")
+    study.write_text(study.read_text() + "\n[analyses.corridor_ranking]\n\n[analyses.least_cost_paths]\n")
+    lf.run_study(study)
+    out = utm_landscape / "gp_out"
+    gpkg = out / "connectivity.gpkg"
+    assert sorted(name for name, _ in pyogrio.list_layers(gpkg)) == ["links", "patches"]
+    patches = pyogrio.read_dataframe(gpkg, layer="patches")
+    links = pyogrio.read_dataframe(gpkg, layer="links")
+    assert patches.crs.to_epsg() == 32632 and links.crs.to_epsg() == 32632
+    assert set(patches.geom_type) <= {"Polygon", "MultiPolygon"} and set(links.geom_type) == {"LineString"}
+    assert sorted(patches["patch"]) == [1, 2, 3, 4]
+    assert (patches["area"] == patches["cells"] * CELL * CELL).all()
+    table = pd.read_csv(out / "effective_resistance.csv")
+    merged = table.merge(links, on=["patch_a", "patch_b"], suffixes=("", "_gpkg"))
+    assert len(merged) == len(table) == len(links) == 6
+    np.testing.assert_allclose(merged["resistance_gpkg"], merged["resistance"], rtol=1e-12)
+    ranking = pd.read_csv(out / "corridor_ranking.csv")
+    np.testing.assert_array_equal(links.sort_values(["patch_a", "patch_b"])["rank"],
+                                  ranking.sort_values(["patch_a", "patch_b"])["rank"])
+    # each link runs between points inside its two patches
+    for _, link in links.iterrows():
+        start, end = link.geometry.coords[0], link.geometry.coords[-1]
+        a = patches.loc[patches["patch"] == link["patch_a"]].geometry.iloc[0]
+        b = patches.loc[patches["patch"] == link["patch_b"]].geometry.iloc[0]
+        assert a.contains(Point(start)) and b.contains(Point(end))
