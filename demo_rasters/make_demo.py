@@ -109,31 +109,11 @@ def write(name, array, dtype, nodata):
         dst.write(data.astype(dtype), 1)
 
 
-def write_ponds_geopackage(labels, name="ponds.gpkg"):
-    """The ponds as polygons (one per pond, traced from its cells) with an id column, in longitude and
-    latitude (EPSG:4326), as a field survey's GIS layer might come: landflow reprojects it."""
-    import geopandas as gpd
-    from rasterio.features import shapes
-    from shapely.geometry import shape
-    from shapely.ops import unary_union
-
-    parts = {}
-    for geometry, value in shapes(labels.astype(np.int32), mask=labels > 0, transform=TRANSFORM):
-        parts.setdefault(int(value), []).append(shape(geometry))
-    ids = sorted(parts)
-    frame = gpd.GeoDataFrame({"id": ids, "name": [f"pond {i}" for i in ids]},
-                             geometry=[unary_union(parts[i]) for i in ids], crs=CRS).to_crs("EPSG:4326")
-    path = HERE / name
-    path.unlink(missing_ok=True)
-    frame.to_file(path, layer="ponds", driver="GPKG")
-
-
 def main():
     resistance, road, _ = landscape()
     labels, population = ponds(resistance)
     write("resistance.tif", resistance, "float32", -9999.0)
     write("ponds.tif", labels, "uint8", 0)
-    write_ponds_geopackage(labels)
     write("pond_population.tif", population, "float32", -9999.0)
     write("resistance_with_underpass.tif", with_underpass(*landscape()), "float32", -9999.0)
     write("road_mortality.tif", road_mortality(resistance, road), "float32", -9999.0)

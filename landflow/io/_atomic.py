@@ -9,7 +9,7 @@ from pathlib import Path
 def atomic_path(path):
     """Yield a temporary name beside ``path``; rename it to ``path`` only on success."""
     path = Path(path)
-    tmp = path.with_name(f".{path.stem}.partial-{os.getpid()}{path.suffix}")   # keeps the extension: GDAL reads it
+    tmp = path.with_name(f".{path.name}.partial-{os.getpid()}")
     try:
         yield tmp
         os.replace(tmp, path)

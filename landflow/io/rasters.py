@@ -2,11 +2,8 @@
 
 from __future__ import annotations
 
-import uuid
-
 import numpy as np
 import rasterio
-import rasterio.shutil
 from rasterio.errors import RasterioIOError
 
 from ..errors import InputError
@@ -121,41 +118,25 @@ def read_aligned(path, grid, *, what="raster", integer=False):
     return other
 
 
-def write_geotiff(path, array, grid, *, description=None, units=None, **profile):
-    """Write ``array`` on ``grid`` as a Cloud-Optimized GeoTIFF, float32 (:data:`GEOTIFF_PROFILE`).
+def write_geotiff(path, array, grid, **profile):
+    """Write ``array`` on ``grid`` as a compressed float32 GeoTIFF (:data:`GEOTIFF_PROFILE`).
 
-    The file follows OGC's Cloud Optimized GeoTIFF standard (OGC 21-026) through
-    GDAL's COG driver: 256 x 256 internal tiles, overviews (averages) down to
-    one tile, deflate compression with the floating-point predictor, and the
-    nodata value :data:`NODATA` for NaN cells. ``description`` and ``units``
-    are written as the band's description and unit type, which GIS programs
-    show. ``profile`` overlays the creation options. The file appears under
-    its final name only once it is complete.
+    The file is tiled in 256 x 256 blocks when the grid holds at least one
+    block, striped otherwise. NaN cells are written as :data:`NODATA`.
+    ``profile`` overlays the creation options. The file appears under its
+    final name only once it is complete.
     """
-    from rasterio.shutil import copy as copy_dataset
-
     array = np.asarray(array)
     if array.shape != grid.shape:
         raise InputError(f"{path}: array of shape {array.shape} does not fit the grid {grid.shape} of {grid.source}.")
     opts = {**GEOTIFF_PROFILE, "height": grid.shape[0], "width": grid.shape[1],
             "transform": grid.transform, "crs": grid.crs, **profile}
-    for key in ("tiled", "blockxsize", "blockysize", "zlevel"):
-        opts.pop(key, None)
+    if grid.shape[0] < opts["blockysize"] or grid.shape[1] < opts["blockxsize"]:
+        opts["tiled"] = False
+        opts.pop("blockxsize"), opts.pop("blockysize")
     data = array.astype(opts["dtype"])
     if np.issubdtype(data.dtype, np.floating) and opts["nodata"] is not None:
         data = np.where(np.isnan(data), opts["nodata"], data)
-    cog = {"driver": "COG", "blocksize": 256, "compress": opts.pop("compress", "deflate"),
-           "predictor": "YES" if opts.pop("predictor", None) else "NO", "overview_resampling": "average",
-           "level": 6}
-    staged_name = f"/vsimem/landflow-{uuid.uuid4().hex}.tif"        # one per call: batches write from threads
     with atomic_path(path) as tmp:
-        with rasterio.open(staged_name, "w", **{**opts, "driver": "GTiff"}) as staged:
-            staged.write(data, 1)
-            if description:
-                staged.set_band_description(1, description)
-            if units:
-                staged.set_band_unit(1, units)
-        try:
-            copy_dataset(staged_name, tmp, **cog)
-        finally:
-            rasterio.shutil.delete(staged_name)
+        with rasterio.open(tmp, "w", **opts) as dst:
+            dst.write(data, 1)

@@ -52,15 +52,13 @@ def read_patch_raster(path, grid):
     return Patches(values.astype(np.int64), None, str(path))
 
 
-def read_patch_points(path, grid, *, weight_column=None, crs=None):
+def read_patch_points(path, grid, *, weight_column=None):
     """Patches from a CSV of points with columns ``x``, ``y``, ``id`` (map coordinates of the grid's CRS).
 
     Each point marks the cell it falls in. Several points may share an id
     (one patch of several cells); two different ids in one cell are an error.
     With ``weight_column``, that column gives each patch's weight (a
-    finite number >= 0, the same on every point of one id). With ``crs``
-    (such as ``"EPSG:4326"``, x = longitude, y = latitude), the points are
-    reprojected to the grid's CRS with pyproj.
+    finite number >= 0, the same on every point of one id).
     """
     try:
         table = pd.read_csv(path, skipinitialspace=True, dtype=str, keep_default_na=False)
@@ -97,11 +95,7 @@ def read_patch_points(path, grid, *, weight_column=None, crs=None):
             line = int(bad.argmax()) + 2
             raise InputError(f"{path}, line {line}: {weight_column!r} is {weight[line - 2]:g}; "
                              "a patch weight must be a finite number >= 0.")
-    x, y = table["x"].to_numpy(), table["y"].to_numpy()
-    if crs is not None:
-        x, y = _to_grid_crs(x, y, crs, grid, path)
-        table["x"], table["y"] = x, y
-    rows, cols = grid.rowcol(x, y)
+    rows, cols = grid.rowcol(table["x"].to_numpy(), table["y"].to_numpy())
     inside = (rows >= 0) & (rows < grid.shape[0]) & (cols >= 0) & (cols < grid.shape[1])
     if not inside.all():
         n = int(np.argmin(inside))
@@ -146,19 +140,3 @@ def patch_weight_from_raster(path, grid, patches):
     sums = np.bincount(np.searchsorted(ids, patches.labels[patches.labels > 0]),
                        weights=values[patches.labels > 0], minlength=ids.size)
     return {int(i): float(s) for i, s in zip(ids, sums)}
-
-
-def _to_grid_crs(x, y, crs, grid, path):
-    """Reproject point coordinates from ``crs`` to the grid's CRS (pyproj, x/y in the CRS's traditional order)."""
-    from pyproj import CRS, Transformer
-    from pyproj.exceptions import CRSError
-    try:
-        source = CRS.from_user_input(crs)
-    except CRSError as exc:
-        raise InputError(f"{path}: 'patches.points_crs' = {crs!r} is not a CRS pyproj knows ({exc}). Give one "
-                         "such as 'EPSG:4326'.") from None
-    if grid.crs is None:
-        raise InputError(f"{path}: the points are in {crs}, but the landscape raster {grid.source} has no CRS to "
-                         "reproject them to. Give the raster a CRS.")
-    transformer = Transformer.from_crs(source, CRS.from_user_input(grid.crs.to_wkt()), always_xy=True)
-    return transformer.transform(x, y)

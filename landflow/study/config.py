@@ -45,12 +45,8 @@ def _non_negative(value):
 
 def _patch_rules(patches):
     if patches["raster"] is not None and patches["weight_column"] is not None:
-        return ("'patches.weight_column' only applies to patch points or a vector file; with a patch raster use "
+        return ("'patches.weight_column' only applies to patch points; with a patch raster use "
                 "'patches.weight_raster'")
-    if patches["vector"] is None and (patches["layer"] is not None or patches["all_touched"]):
-        return "'patches.layer' and 'patches.all_touched' only apply to a vector file ('patches.vector')"
-    if patches["points"] is None and patches["points_crs"] is not None:
-        return "'patches.points_crs' only applies to a points CSV ('patches.points')"
     return None
 
 
@@ -92,23 +88,13 @@ SECTIONS = {
     "patches": Section({
         "raster": Key(str, None, "integer raster of patch labels on the landscape's grid, 0 = no patch", path="input",
                       unit="label", example="patches.tif"),
-        "points_crs": Key(str, None, "CRS of the points CSV's x and y when it is not the landscape's, such as "
-                                     "'EPSG:4326' (x = longitude, y = latitude)"),
-        "points": Key(str, None, "CSV with columns x, y, id (map coordinates in the landscape's CRS, or in "
-                                 "'points_crs')", path="input",
+        "points": Key(str, None, "CSV with columns x, y, id (map coordinates in the landscape's CRS)", path="input",
                       unit="map units", example="sites.csv"),
-        "vector": Key(str, None, "vector file of patch points or polygons (GeoPackage, GeoJSON, Shapefile, "
-                                 "FlatGeobuf; any CRS, reprojected to the landscape's)", path="input",
-                      example="ponds.gpkg"),
-        "layer": Key(str, None, "layer of the vector file to read (needed when it holds several)"),
-        "id_column": Key(str, "id", "column of the vector file holding each patch's id (a whole number > 0)"),
-        "all_touched": Key(bool, False, "a polygon covers every cell it touches, not only the cells whose "
-                                        "centres lie inside it (for thin polygons)"),
-        "weight_column": Key(str, None, "column of the points CSV or vector file holding each patch's weight in "
-                                        "the pair sum (population size, area, quality)"),
+        "weight_column": Key(str, None, "column of the points CSV holding each patch's weight in the pair sum "
+                                        "(population size, area, quality)"),
         "weight_raster": Key(str, None, "raster summed over each patch's cells to give its weight in the pair "
                                         "sum", path="input", unit="weight per cell", example="population.tif"),
-    }, "Habitat patches or sample sites.", exactly_one=(("raster", "points", "vector"),), check=_patch_rules,
+    }, "Habitat patches or sample sites.", exactly_one=(("raster", "points"),), check=_patch_rules,
         renamed={"strength_column": "weight_column", "strength_raster": "weight_raster"}),
     "mortality": Section({
         "raster": Key(str, None, "raster of per-step death probability in [0, 1) on the landscape's grid; "

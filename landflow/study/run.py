@@ -60,7 +60,6 @@ class RunContext:
         self.solvers = []
         self.step = None
         self.shared_users = {}
-        self.tables = {}
         self._load()
 
     # -- inputs ---------------------------------------------------------------
@@ -80,14 +79,9 @@ class RunContext:
             spec = self.study.settings["patches"]
             if spec["raster"] is not None:
                 self.patches = read_patch_raster(self._input(spec["raster"]), self.grid)
-            elif spec["vector"] is not None:
-                from ..io.vector import read_patch_vector
-                self.patches = read_patch_vector(self._input(spec["vector"]), self.grid, layer=spec["layer"],
-                                                 id_column=spec["id_column"], weight_column=spec["weight_column"],
-                                                 all_touched=spec["all_touched"])
             else:
                 self.patches = read_patch_points(self._input(spec["points"]), self.grid,
-                                                 weight_column=spec["weight_column"], crs=spec["points_crs"])
+                                                 weight_column=spec["weight_column"])
             if spec["weight_raster"] is not None:
                 self.patches.weight = patch_weight_from_raster(
                     self._input(spec["weight_raster"]), self.grid, self.patches)
@@ -261,31 +255,12 @@ class RunContext:
         path = self._record(name, description, units)
         path.parent.mkdir(parents=True, exist_ok=True)
         array = self.graph.to_raster(values) if per_node else values
-        write_geotiff(path, array, self.grid, description=description, units=units)
+        write_geotiff(path, array, self.grid)
         return array
 
     def write_table(self, name, table, *, description, units="see docs/outputs.md", **kwargs):
         path = self._record(name, description, units)
         write_csv(path, table, **kwargs)
-        self.tables[name] = table
-
-    def write_vector_results(self):
-        """connectivity.gpkg: patches as polygons and links between them as lines, with their tables' numbers."""
-        links = self.tables.get("effective_resistance.csv")
-        if links is None:
-            return
-        links = links.copy()
-        for name, columns in [("corridor_ranking.csv", ["rank", "connectivity_drop", "connectivity_drop_share"]),
-                              ("least_cost_distance.csv", ["least_cost_distance", "path_length"])]:
-            table = self.tables.get(name)
-            if table is not None:
-                links = links.merge(table[["patch_a", "patch_b"] + columns], on=["patch_a", "patch_b"], how="left")
-        from ..io.vector import write_results_geopackage
-        path = self._record("connectivity.gpkg", "patches as polygons (layer patches) and the links between "
-                            "every pair as lines with effective resistance, escape probabilities, commute time "
-                            "and, when computed, least-cost distance and rank (layer links)",
-                            "as in the CSV tables; map units")
-        write_results_geopackage(path, self.grid, self.patches.labels, links=links)
 
     def quicklook(self, name, array, *, title, units, log_scale=True, categorical=False):
         if not self.study.settings["output"]["quicklooks"]:
@@ -442,9 +417,6 @@ def run_study(study):
             with ctx.timed(name):
                 ANALYSES[name].run(ctx, settings)
         ctx.step = None
-        if ctx.grid.crs is not None:
-            with ctx.timed("vector results"):
-                ctx.write_vector_results()
         manifest = _manifest(ctx, time.perf_counter() - started, run_id=out.run_id)
         from ..report import write_report
         write_report(out.staging / "report.md", manifest, CAUTION)

@@ -60,16 +60,11 @@ def test_rerun_gives_identical_numbers(points_study, tmp_path):
 
 
 def test_weight_column_needs_points(study):
-    with pytest.raises(lf.ConfigError, match=r"'patches\.weight_column' only applies to patch points or a vector "
-                                             r"file; with a patch raster use 'patches\.weight_raster'"):
+    with pytest.raises(lf.ConfigError, match=r"'patches\.weight_column' only applies to patch points; with a "
+                                             r"patch raster use 'patches\.weight_raster'"):
         lf.run_study(study(patches='raster = "patches.tif"\nweight_column = "adults"'))
     with pytest.raises(lf.ConfigError, match=r"'patches\.weight_column' only applies to patch points"):
         load_study(study(patches='raster = "patches.tif"\nweight_column = "adults"'))   # before any input is read
-    with pytest.raises(lf.ConfigError, match=r"'patches\.layer' and 'patches\.all_touched' only apply to a vector "
-                                             r"file"):
-        load_study(study(patches='raster = "patches.tif"\nlayer = "ponds"'))
-    with pytest.raises(lf.ConfigError, match=r"'patches\.points_crs' only applies to a points CSV"):
-        load_study(study(patches='raster = "patches.tif"\npoints_crs = "EPSG:4326"'))
 
 
 def test_each_distinct_system_is_factorised_once_and_the_manifest_says_who_shared_it(study, tif):
