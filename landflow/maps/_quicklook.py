@@ -80,8 +80,9 @@ def colour_scale(values, kind, *, classes=None):
                 subs = (1.0, 2.0, 5.0) if decades > 2 else np.arange(1.0, 10.0)
                 ticks = LogLocator(base=10, subs=subs).tick_values(lo, hi)
                 ticks = ticks[(ticks >= lo) & (ticks <= hi)]
-                if ticks.size < 3:
-                    ticks = np.unique(np.round(np.geomspace(lo, hi, 4), -np.floor(np.log10(lo)).astype(int) + 1))
+                if ticks.size < 3:  # under a decade: round linear steps read better than powers of ten
+                    ticks = MaxNLocator(nbins=5).tick_values(lo, hi)
+                    ticks = ticks[(ticks >= lo) & (ticks <= hi)]
                 extend = "both" if finite.min() < lo or finite.max() > hi else "neither"
                 return cmap, LogNorm(lo, hi, clip=False), ticks, extend
         kind = "magnitude"  # nothing positive to put on a log scale, or all one value

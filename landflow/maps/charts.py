@@ -32,7 +32,7 @@ def _svg(fig, name, titles=None):
     import matplotlib
     buffer = io.StringIO()
     with matplotlib.rc_context({**style.matplotlib_style(), "svg.hashsalt": name, "svg.id": f"chart-{name}"}):
-        fig.savefig(buffer, format="svg")
+        fig.savefig(buffer, format="svg", metadata={"Date": None})  # same folder, same page
     text = buffer.getvalue()
     text = text[text.index("<svg"):]
     text = re.sub(r'<svg([^>]*?) width="[^"]+" height="[^"]+"', r'<svg\1 class="chart" role="img"', text, count=1)
