@@ -276,7 +276,6 @@ def build_html(folder, manifest):
     charts_by = _charts(folder, manifest)
     summary = manifest.get("summary", {})
     by_analysis = manifest.get("summary_by_analysis") or {}
-    claimed = {k for keys in by_analysis.values() for k in keys}
     sections = []
     for name in names:
         outputs = [o for o in manifest["outputs"] if o.get("analysis") == name]
@@ -293,6 +292,11 @@ def build_html(folder, manifest):
         sections.append({"id": "maps", "title": "Maps", "numbers": [], "charts": [], "files": [],
                          "maps": [{"src": _data_uri(folder / o["file"]), "file": o["file"], "units": o["units"],
                                    "caption": o["description"].removeprefix("quick-look picture: ")} for o in loose]})
+    headline = None
+    pictures = [m for section in sections for m in section["maps"]]
+    for wanted in ("current_density.png", "corridor_overlap.png", "least_cost_paths.png"):
+        headline = headline or next((m for m in pictures if m["file"] == wanted), None)
+    headline = headline or (pictures[0] if pictures else None)
     header, rows = _pair_table(folder, manifest)
     ranking = _read_csv(folder, manifest, "corridor_ranking.csv")
     ranked = [] if ranking is None else [
@@ -308,7 +312,8 @@ def build_html(folder, manifest):
         manifest=manifest, land=land, page=style.PAGE, caution=manifest.get("caution", ""),
         inputs=manifest.get("inputs", []), versions=manifest.get("versions", {}),
         settings_text=json.dumps(settings, indent=2, default=str), solvers=manifest.get("solvers", []),
-        general=[(k, v) for k, v in summary.items() if k not in claimed], sections=sections,
+        sections=sections, headline=headline,
+        key_numbers=list(summary.items()),
         pair_header=header, pair_rows=rows, ranked=ranked, warnings=manifest.get("warnings", []),
         timeline=charts.timeline(stages) if stages else None,
         outputs=manifest["outputs"], total=manifest.get("timings_seconds", {}).get("total"))

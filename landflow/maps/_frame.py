@@ -318,6 +318,9 @@ def draw_scale_bar(ax, geometry):
 
 def draw_north_arrow(ax):
     """A north arrow in the upper right (grids are north-up: see :class:`landflow.grid.Grid`)."""
+    from matplotlib.patches import FancyBboxPatch
+    ax.add_patch(FancyBboxPatch((0.925, 0.765), 0.06, 0.19, boxstyle="round,pad=0.005", transform=ax.transAxes,
+                                facecolor=style.PAPER, edgecolor="none", alpha=0.8, zorder=21))
     ax.annotate("N", xy=(0.955, 0.93), xytext=(0.955, 0.80), xycoords="axes fraction", ha="center", va="center",
                 fontsize=style.FONT_SIZE + 1, fontweight="bold", zorder=22, path_effects=_halo(),
                 arrowprops={"arrowstyle": "-|>,head_width=0.35,head_length=0.7", "color": style.INK,

@@ -35,7 +35,7 @@ CAUTION = ("These are model outputs. They depend on the resistance values and on
            "random-walk and circuit models. Use them for decision support alongside field evidence, local "
            "regulation and licensed professional practice, not as a substitute for them.")
 
-_DEPENDENCIES = ("numpy", "scipy", "pandas", "rasterio", "scikit-image", "pyamg", "matplotlib")
+_DEPENDENCIES = ("numpy", "scipy", "pandas", "rasterio", "scikit-image", "pyamg", "matplotlib", "jinja2")
 
 
 class RunContext:

@@ -19,7 +19,8 @@ def test_page_is_self_contained_and_has_every_section(report_run):
         assert f'<section id="{name}">' in page
     # nothing to fetch: no external addresses in src/href, pictures embedded as data
     assert not re.search(r'(src|href)="(https?:)?//', page)
-    assert page.count('src="data:image/png;base64,') == sum(o["file"].endswith(".png") for o in manifest["outputs"])
+    # every map of the run, and the headline map once more at the top
+    assert page.count('src="data:image/png;base64,') == 1 + sum(o["file"].endswith(".png") for o in manifest["outputs"])
     # one pair-table row per pair of the 5 patches
     table = page[page.index('id="pair-table"'):]
     assert table[:table.index("</table>")].count("<tr>") == 1 + 10

@@ -59,7 +59,7 @@ def test_report_page_loads_cleanly_and_sorts(report_run, browser, tmp_path):
     images = page.eval_on_selector_all("img", "els => els.map(e => [e.complete, e.naturalWidth, e.naturalHeight,"
                                               " e.getBoundingClientRect().width])")
     pngs = [o for o in manifest["outputs"] if o["file"].endswith(".png")]
-    assert len(images) == len(pngs) >= 8                              # every map of the run is on the page
+    assert len(images) == len(pngs) + 1 >= 9                          # every map of the run, and the headline map
     assert all(done and w > 0 and h > 0 and shown > 0 for done, w, h, shown in images)
     charts = page.eval_on_selector_all("svg.chart", "els => els.map(e => e.getBoundingClientRect().width)")
     assert len(charts) >= 5 and all(w > 0 for w in charts)           # matrix, scatter, bars, arrival, simulation, timeline
