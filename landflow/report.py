@@ -18,18 +18,11 @@ import numpy as np
 from .errors import InputError
 from .io._atomic import atomic_path
 
-__all__ = ["quicklook", "write_report", "write_reports", "build_html", "rebuild_reports", "REPORT_FILES"]
+__all__ = ["write_report", "write_reports", "build_html", "rebuild_reports", "REPORT_FILES"]
 
 REPORT_FILES = ("report.md", "report.html")
 
 _DESCRIPTIONS = {"report.md": "a plain-text account of the run", "report.html": "the run's report as one web page"}
-
-
-def quicklook(path, array, *, patches=None, title="", units="", log_scale=True, categorical=False):
-    """Save a PNG map of ``array`` with unit cells (kept for callers from Python; see :mod:`landflow.maps`)."""
-    from .maps import quicklook as draw
-    kind = "classes" if categorical else "log" if log_scale else "magnitude"
-    draw(path, array, kind=kind, patches=patches, title=title, units=units)
 
 
 # -- plain text --------------------------------------------------------------------------------------------
@@ -98,15 +91,18 @@ def rebuild_reports(folder):
         The folder holds no landflow ``manifest.json``.
     """
     from .study.folder import is_landflow_manifest
-    folder = Path(folder)
+    folder = Path(folder).resolve()
     path = folder / "manifest.json"
     if not is_landflow_manifest(path):
         raise InputError(f"{folder}: no landflow manifest.json there; give the output folder of a finished run "
                          "(the folder named by [output] folder in the study file).")
-    manifest = json.loads(path.read_text(encoding="utf-8"))
-    page = write_reports(folder, manifest)
-    with atomic_path(path) as tmp:
-        tmp.write_text(json.dumps(manifest, indent=2) + "\n", encoding="utf-8")
+    from .study.folder import OutputFolder
+    # the folder's lock: no run may replace the outputs while the reports are remade from them
+    with OutputFolder(folder, stage=False, source=str(folder)):
+        manifest = json.loads(path.read_text(encoding="utf-8"))
+        page = write_reports(folder, manifest)
+        with atomic_path(path) as tmp:
+            tmp.write_text(json.dumps(manifest, indent=2) + "\n", encoding="utf-8")
     return page
 
 

@@ -93,6 +93,32 @@ def colour_scale(values, kind, *, classes=None):
     return cmap, Normalize(lo, hi), None, extend
 
 
+def _colours_apart(values, classes):
+    """Palette colours for more classes than colours, such that classes sharing a border never share a colour.
+
+    Greedy colouring of the classes' adjacency graph (cells side by side), classes in
+    order, each taking the least used colour its earlier neighbours left free; a class
+    whose neighbours use every colour takes the one they use least.
+    """
+    palette = list(style.QUALITATIVE)
+    index = {float(v): i for i, v in enumerate(classes)}
+    neighbours = [set() for _ in classes]
+    for a, b in ((values[:, :-1], values[:, 1:]), (values[:-1, :], values[1:, :])):
+        pairs = np.stack([a.ravel(), b.ravel()], axis=1)
+        pairs = pairs[np.isfinite(pairs).all(axis=1) & (pairs[:, 0] != pairs[:, 1])]
+        for x, y in np.unique(pairs, axis=0):
+            if x in index and y in index:
+                neighbours[index[x]].add(index[y])
+                neighbours[index[y]].add(index[x])
+    chosen = []
+    for i in range(len(classes)):
+        taken = [chosen[j] for j in neighbours[i] if j < i]
+        free = [k for k in range(len(palette)) if k not in taken]
+        chosen.append(min(free, key=lambda k: (chosen.count(k), k)) if free else
+                      min(range(len(palette)), key=taken.count))
+    return [palette[k] for k in chosen]
+
+
 def _round_down(value):
     """The largest number with one significant digit not above ``value`` (> 0)."""
     power = 10.0 ** np.floor(np.log10(value))
@@ -197,6 +223,8 @@ def render_quicklook(array, geometry, *, kind="magnitude", title="", units="", p
         cmap, norm, ticks, extend = colour_scale(values, kind, classes=(class_names or None) and class_names.keys())
         if kind == "classes" and class_colours:
             cmap = ListedColormap([class_colours.get(int(v), cmap(i)) for i, v in enumerate(ticks)])
+        elif kind == "classes" and len(ticks) > len(style.QUALITATIVE):
+            cmap = ListedColormap(_colours_apart(values, ticks))
         image = ax.imshow(np.ma.masked_invalid(values), cmap=cmap, norm=norm, zorder=4, **draw)
         shown_cells = np.isfinite(values)
         if kind in ("count", "classes") and backdrop is not None and 0 < shown_cells.sum() < 0.002 * values.size:

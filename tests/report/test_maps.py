@@ -218,3 +218,17 @@ def test_cluster_order_keeps_groups_together():
     assert (np.diff(labels) != 0).sum() == 1
     d[0, 3] = d[3, 0] = np.inf                                     # a pair no walk connects
     assert sorted(cluster_order(d)) == list(range(6))
+
+
+def test_neighbouring_classes_never_share_a_colour():
+    # twelve destination regions in a 3 x 4 block layout: more classes than palette colours
+    values = np.kron(np.arange(1, 13, dtype=float).reshape(3, 4), np.ones((5, 5)))
+    fig = render_quicklook(values, _geometry(15, 20), kind="classes")
+    image = fig.axes[0].get_images()[-1]
+    colours = {v: image.cmap(image.norm(v)) for v in range(1, 13)}
+    for r in range(3):
+        for c in range(4):
+            v = 1 + 4 * r + c
+            for dr, dc in ((0, 1), (1, 0)):
+                if r + dr < 3 and c + dc < 4:
+                    assert colours[v] != colours[v + 4 * dr + dc], (v, v + 4 * dr + dc)
