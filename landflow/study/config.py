@@ -105,7 +105,10 @@ SECTIONS = {
     }, "Optional death of walkers on the way, used by the absorbing-walk analyses. Give at most one key; "
        "mortality on patch cells is ignored.", check=_mortality_rules),
     "solver": Section({
-        "method": Key(str, "auto", "linear solver: auto, direct (sparse LU) or multigrid (AMG + CG)", choices=METHODS),
+        "method": Key(str, "auto", "linear solver: auto (direct or multigrid by size), direct (the fastest "
+                                   "direct engine installed), multigrid (AMG + CG), or one direct engine: "
+                                   "superlu, cholmod or pardiso (the last two from the 'fast' extra)",
+                      choices=METHODS),
         "tolerance": Key(float, 1e-8, "relative residual target of iterative solves", check=_tolerance,
                          unit="relative residual"),
     }, "How the linear systems are solved."),
