@@ -32,8 +32,10 @@ def main(argv=None):
         sys.exit("no Chromium found: install it (Debian: apt-get install chromium)")
     folder = args.folder
     if folder is None:
+        import os
         from landflow.study.run import run_study
-        folder = Path(run_study(ROOT / "demo_rasters" / "study.toml")["folder"])
+        os.chdir(ROOT)  # the page names the study file as given: relative, as a user would type it
+        folder = Path(run_study(Path("demo_rasters") / "study.toml")["folder"])
     page = (folder / "report.html").resolve()
     with tempfile.TemporaryDirectory() as profile:
         shot = Path(profile) / "shot.png"
@@ -43,7 +45,7 @@ def main(argv=None):
         from PIL import Image  # matplotlib's own dependency
         with Image.open(shot) as image:
             small = image.convert("RGB").resize((args.width * 2 // 3, args.height * 2 // 3), Image.LANCZOS)
-            small.save(args.out, optimize=True)
+            small.quantize(colors=256, method=Image.Quantize.FASTOCTREE).save(args.out, optimize=True)  # a small file
     print(f"wrote {args.out}")
 
 
