@@ -254,7 +254,7 @@ def new_map(geometry, *, title="", width=None, height_limits=(2.8, 9.0)):
     """
     from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.figure import Figure
-    from matplotlib.ticker import FuncFormatter, MaxNLocator
+    from matplotlib.ticker import FixedLocator, FuncFormatter, MaxNLocator
 
     left, right, bottom, top = geometry.extent
     width = width or style.MAP_WIDTH_INCHES
@@ -270,8 +270,9 @@ def new_map(geometry, *, title="", width=None, height_limits=(2.8, 9.0)):
     ax.set_aspect("auto" if stretched else "equal")
     ax.set_facecolor(style.PAPER)
     fmt = FuncFormatter(lambda v, _: f"{v:,.0f}".replace(",", "\u2009") if abs(v) >= 100 else f"{v:g}")
-    for axis in (ax.xaxis, ax.yaxis):
-        axis.set_major_locator(MaxNLocator(5))
+    for axis, long_side, middle in ((ax.xaxis, ratio <= 1, (left + right) / 2), (ax.yaxis, ratio >= 1, (bottom + top) / 2)):
+        # the short side of a strip gets one tick, at its middle, so that labels never pile up
+        axis.set_major_locator(MaxNLocator(5) if long_side or not stretched else FixedLocator([middle]))
         axis.set_major_formatter(fmt)
     ax.tick_params(axis="y", labelrotation=90)
     for label in ax.get_yticklabels():
@@ -407,6 +408,8 @@ def _display_box(ax, fractions):
 
 def finish_map(ax, geometry):
     """Scale bar, north arrow and CRS name: call once the map's layers are drawn."""
+    if getattr(ax, "landflow_stretched", False):
+        ax.set_aspect("auto")  # imshow sets an equal aspect; a strip one cell wide must stay readable
     length = draw_scale_bar(ax, geometry)
     draw_north_arrow(ax)
     draw_crs(ax, geometry)
