@@ -202,9 +202,10 @@ def patch_anchors(labels):
     labels = np.asarray(labels)
     if labels.size == 0 or not (labels > 0).any():
         return []
-    as_int = labels.astype(np.int64, copy=False)
+    # patch rasters hold whole numbers >= 0: find_objects reads them as they are, without a full-size copy
+    as_int = labels if labels.dtype.kind in "iu" else labels.astype(np.int64)
     out = []
-    for index, box in enumerate(ndimage.find_objects(np.where(as_int > 0, as_int, 0)), start=1):
+    for index, box in enumerate(ndimage.find_objects(as_int), start=1):
         if box is None:
             continue
         rows, cols = np.nonzero(as_int[box] == index)
@@ -346,7 +347,7 @@ def draw_patches(ax, labels, geometry, *, names=None, factor=1):
     labels = np.asarray(labels)
     if labels.size == 0 or not (labels > 0).any():
         return []
-    occupied = block_reduce(labels > 0, factor, how="max") if factor > 1 else (labels > 0)
+    occupied = block_reduce(labels, factor, how="max") > 0 if factor > 1 else (labels > 0)
     small = geometry.reduced(factor) if factor > 1 else geometry
     rows, cols = occupied.shape
     if rows > 1 and cols > 1:

@@ -187,9 +187,9 @@ def render_quicklook(array, geometry, *, kind="magnitude", title="", units="", p
         if factor > 1:
             data = block_reduce(data, factor, how="max" if kind == "count" else
                                 "first" if kind == "classes" else "mean")
-            inside = block_reduce(inside.astype(float), factor, how="max") > 0
+            inside = block_reduce(inside, factor, how="max") > 0          # strip by strip: no full-size copy
             backdrop = None if backdrop is None else block_reduce(backdrop, factor, how="mean")
-            marks = None if marks is None else block_reduce(np.asarray(marks, dtype=float), factor, how="max") > 0
+            marks = None if marks is None else block_reduce(np.asarray(marks), factor, how="max") > 0
         shown = geometry.reduced(factor) if factor > 1 else geometry
         fig, ax = new_map(shown, title=title)
         extent = shown.extent
