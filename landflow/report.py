@@ -256,6 +256,42 @@ def _charts(folder, manifest):
     return out
 
 
+def _derived_numbers(folder, manifest):
+    """Key numbers per analysis read back from its tables (with units), for analyses that record none."""
+    from .maps.charts import number_text
+    out = {}
+    lcd = _read_csv(folder, manifest, "least_cost_distance.csv")
+    if lcd is not None and len(lcd):
+        d = lcd["least_cost_distance"].to_numpy(dtype=float)
+        d = d[np.isfinite(d)]
+        if d.size:
+            out.setdefault("least_cost_paths", []).append((
+                "least-cost distance (min / median / max)",
+                f"{number_text(d.min())} / {number_text(np.median(d))} / {number_text(d.max())} resistance x map unit"))
+    gain = _read_csv(folder, manifest, "restoration_gain_cells.csv")
+    if gain is not None and len(gain):
+        top = gain.iloc[0]
+        units = next((o["units"] for o in manifest["outputs"] if o["file"] == "restoration_gain.tif"), "")
+        out.setdefault("restoration_gain", []).append((
+            "cell where lowering resistance helps most",
+            f"x {number_text(top['x'])}, y {number_text(top['y'])} (map units): gain {number_text(top['gain'])} {units}"))
+    steps = _read_csv(folder, manifest, "expected_steps_from_patch.csv")
+    if steps is not None and len(steps) and "expected_steps" in steps.columns:
+        s = steps["expected_steps"].to_numpy(dtype=float)
+        out.setdefault("expected_steps", []).append((
+            "expected steps from a patch until arrival or death (min / max)",
+            f"{number_text(s.min())} / {number_text(s.max())} steps"))
+    change = _read_csv(folder, manifest, "scenario_change.csv")
+    if change is not None and len(change) and "resistance_change_percent" in change.columns:
+        row = change.loc[change["resistance_change_percent"].abs().idxmax()]
+        out.setdefault("scenario_change", []).append((
+            "pair whose effective resistance changes most",
+            f"patches {_pair_name(row['patch_a'], row['patch_b'])}: {row['resistance_change_percent']:+.2f}% "
+            f"({number_text(row['resistance_before'])} to {number_text(row['resistance_after'])} "
+            "resistance x map unit)"))
+    return out
+
+
 def style_probability():
     from .maps import style
     return style.PROBABILITY
@@ -270,6 +306,7 @@ def build_html(folder, manifest):
     settings = manifest.get("settings", {})
     names = list(settings.get("analyses", {}).keys())
     charts_by = _charts(folder, manifest)
+    derived = _derived_numbers(folder, manifest)
     summary = manifest.get("summary", {})
     by_analysis = manifest.get("summary_by_analysis") or {}
     sections = []
@@ -279,7 +316,8 @@ def build_html(folder, manifest):
                  "file": o["file"], "units": o["units"]}
                 for o in outputs if o["file"].endswith(".png") and (folder / o["file"]).is_file()]
         sections.append({"id": name, "title": _ANALYSIS_TITLES.get(name, name.replace("_", " ").capitalize()),
-                         "numbers": [(k, summary[k]) for k in by_analysis.get(name, []) if k in summary],
+                         "numbers": [(k, summary[k]) for k in by_analysis.get(name, []) if k in summary]
+                         + derived.get(name, []),
                          "maps": maps, "charts": charts_by.get(name, []),
                          "files": [o for o in outputs if not o["file"].endswith(".png")]})
     loose = [o for o in manifest["outputs"] if "analysis" not in o and o["file"].endswith(".png")
