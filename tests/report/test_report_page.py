@@ -87,3 +87,15 @@ def test_report_page_fits_a_phone(report_run, browser):
     overflow = page.evaluate("document.documentElement.scrollWidth")
     assert overflow <= 390
     assert problems == []
+
+
+def test_report_page_prints_on_a4(report_run, browser):
+    import re
+    _, folder = report_run
+    page, problems, _ = _open(browser, folder / "report.html")
+    pdf = page.pdf(prefer_css_page_size=True, print_background=True)
+    sizes = {tuple(round(float(v)) for v in box.split()[2:4])
+             for box in re.findall(rb"/MediaBox\s*\[([^\]]*)\]", pdf) for box in [box.decode()]}
+    assert sizes == {(595, 842)}                                      # A4 in points, every page
+    assert len(re.findall(rb"/Type\s*/Page[^s]", pdf)) >= 3
+    assert problems == []
