@@ -93,7 +93,7 @@ def cases():
     for v in ["inf", "nan", "-1", "0", "1.5", '"small"']:
         add(f"solver.tolerance = {v}", study(extra=f"[solver]\ntolerance = {v}"))
     add("solver.method = fastest", study(extra='[solver]\nmethod = "fastest"'))
-    for v in ["-1", "1.5", "nan", "inf"]:
+    for v in ["-1", '"high"', "nan", "inf"]:
         add(f"mortality.death_per_resistance = {v}", study(extra=f"[mortality]\ndeath_per_resistance = {v}"))
     add("two mortality keys", study(extra='[mortality]\nraster = "mortality.tif"\ndeath_per_resistance = 0.1'))
     for v in ["-1", '"one"', "1.5"]:
@@ -285,8 +285,9 @@ def main():
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--jobs", type=int, default=2)
     parser.add_argument("--show", choices=["clean", "unclear", "traceback", "silent", "hang"], action="append")
+    parser.add_argument("--only", help="run only the cases whose name holds this text")
     args = parser.parse_args()
-    all_cases = cases()
+    all_cases = [c for c in cases() if not args.only or args.only in c[0]]
     with tempfile.TemporaryDirectory() as base, ThreadPoolExecutor(args.jobs) as pool:
         results = list(pool.map(lambda job: run_case(*job, base),
                                 [(case, command) for case in all_cases for command in ("check", "run")]))

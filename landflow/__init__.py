@@ -25,7 +25,7 @@ from .analyses.resistance import PatchVoltages, effective_resistance, patch_volt
 from .analyses.simulate import WalkSample, simulate_walks
 from .analyses.suitability import resistance_from_suitability
 from .errors import ConfigError, InputError, LandflowError, SolverError
-from .graph import CellGraph, build_graph, cell_edges, landscape_mask
+from .graph import CellGraph, build_graph, cell_edges, landscape_mask, network_graph
 from .grid import Grid
 from .solve import Solver, factorize
 
@@ -75,7 +75,7 @@ def write_geotiff(path, array, grid, **profile):
 
 
 __all__ = [
-    "__version__", "Grid", "CellGraph", "build_graph", "landscape_mask", "Solver", "factorize",
+    "__version__", "Grid", "CellGraph", "build_graph", "network_graph", "landscape_mask", "Solver", "factorize",
     "PatchVoltages", "patch_voltages", "effective_resistance", "resistance_table",
     "edge_current", "pair_current", "pair_weights", "current_density",
     "AbsorbingWalk", "absorbing_walk", "hitting_probability", "absorption_probability", "most_likely_destination",

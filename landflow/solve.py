@@ -33,6 +33,7 @@ keeps the worst one and raises :class:`SolverError` past its tolerance.
 from __future__ import annotations
 
 import importlib.util
+import logging
 import os
 import sys
 import threading
@@ -45,8 +46,10 @@ import scipy.sparse.linalg as sla
 
 from .errors import SolverError
 
+log = logging.getLogger("landflow")
+
 __all__ = ["factorize", "Solver", "METHODS", "DIRECT_MAX_UNKNOWNS", "DIRECT_ALWAYS_UNKNOWNS", "DIRECT_MIN_RHS",
-           "choose_method", "direct_engine"]
+           "choose_method", "direct_engine", "factor_bytes", "available_memory"]
 
 METHODS = ("auto", "direct", "multigrid", "superlu", "pardiso", "cholmod")
 
@@ -75,7 +78,38 @@ _SINGULAR = ("The system is singular: some part of the graph is not tied to a gr
              "(an ungrounded Laplacian).")
 
 
-def choose_method(n_unknowns, n_rhs=1):
+#: Bytes of a direct factor per unknown and per doubling of the unknowns, on a 2-D grid in a
+#: nested-dissection order (the factor holds O(n log n) numbers; George 1973). From the peaks measured
+#: at 4 million unknowns (docs/performance.md): SuperLU 8.2 GB (L and U), Pardiso 6.5 GB, CHOLMOD 4.4 GB,
+#: rounded up so that the estimate errs on the safe side.
+FACTOR_BYTES_PER_UNKNOWN_LOG2 = {"superlu": 100.0, "pardiso": 80.0, "cholmod": 60.0}
+
+
+def factor_bytes(n_unknowns, engine):
+    """Estimated memory of the direct factor of a grid system with ``n_unknowns`` (bytes).
+
+    Examples
+    --------
+    >>> print(round(factor_bytes(4_000_000, "superlu") / 1e9, 1))
+    8.8
+    """
+    n = max(int(n_unknowns), 2)
+    return FACTOR_BYTES_PER_UNKNOWN_LOG2[engine] * n * np.log2(n)
+
+
+def available_memory():
+    """Bytes of memory available to this process now (Linux MemAvailable), or None where unknown."""
+    try:
+        with open("/proc/meminfo", encoding="ascii") as fh:
+            for line in fh:
+                if line.startswith("MemAvailable:"):
+                    return int(line.split()[1]) * 1024
+    except (OSError, ValueError, IndexError):
+        return None
+    return None
+
+
+def choose_method(n_unknowns, n_rhs=1, *, memory=None, engine=None):
     """The backend ``auto`` uses for a system of this size: ``"direct"`` or ``"multigrid"``.
 
     From the crossover table in docs/performance.md (2-core machine, 8-neighbour
@@ -86,18 +120,32 @@ def choose_method(n_unknowns, n_rhs=1):
     above that bound the factor's memory (n log n) and time (n^1.5) outgrow
     the machine and multigrid, linear in memory, takes over.
 
+    With ``memory`` (bytes available), a direct factorisation is chosen only
+    when its estimated size (:func:`factor_bytes` for ``engine``, default the
+    engine ``direct`` would use) fits in 70 % of it, leaving room for the
+    graph, the potentials and the outputs; otherwise multigrid, whose memory
+    grows linearly, and the reason is logged.
+
     Examples
     --------
     >>> choose_method(1_000_000, 1), choose_method(4_000_000, 49), choose_method(4_000_000, 2)
     ('direct', 'direct', 'multigrid')
     >>> choose_method(16_000_000, 9)
     'multigrid'
+    >>> choose_method(1_000_000, 19, memory=1e9, engine="superlu")
+    'multigrid'
     """
-    if n_unknowns <= DIRECT_ALWAYS_UNKNOWNS:
-        return "direct"
-    if n_unknowns <= DIRECT_MAX_UNKNOWNS and n_rhs >= DIRECT_MIN_RHS:
-        return "direct"
-    return "multigrid"
+    wanted = "direct" if n_unknowns <= DIRECT_ALWAYS_UNKNOWNS or (
+        n_unknowns <= DIRECT_MAX_UNKNOWNS and n_rhs >= DIRECT_MIN_RHS) else "multigrid"
+    if wanted == "direct" and memory is not None:
+        engine = engine or direct_engine()
+        need = factor_bytes(n_unknowns, engine)
+        if need > 0.7 * memory:
+            log.info("solver: multigrid instead of a direct factorisation: the %s factor of %d unknowns would "
+                     "need about %.1f GB, more than 70%% of the %.1f GB available", engine, n_unknowns,
+                     need / 1e9, memory / 1e9)
+            return "multigrid"
+    return wanted
 
 
 def direct_engine():
@@ -339,7 +387,7 @@ def factorize(matrix, *, method="auto", tolerance=1e-8, n_rhs=1, ordering=None):
     if not 0.0 < tolerance < 1.0:
         raise SolverError(f"tolerance must be a relative residual between 0 and 1, such as 1e-8; got {tolerance!r}.")
     if method == "auto":
-        method = choose_method(matrix.shape[0], n_rhs)
+        method = choose_method(matrix.shape[0], n_rhs, memory=available_memory())
     engine = None
     if method == "direct":
         engine = direct_engine()
@@ -413,7 +461,10 @@ def _relative_residual(matrix, x, b):
 
     Column by column, so that a badly solved right-hand side is not averaged away by well solved ones.
     """
-    norm_r = np.atleast_1d(np.linalg.norm(b - matrix @ x, axis=0))
+    if x.ndim == 1:
+        norm_r = np.atleast_1d(np.linalg.norm(b - matrix @ x))
+    else:   # one product per column: no copy of a column-major solution into row-major order
+        norm_r = np.array([np.linalg.norm(b[:, j] - matrix @ x[:, j]) for j in range(x.shape[1])])
     norm_b = np.atleast_1d(np.linalg.norm(b, axis=0))
     relative = np.divide(norm_r, norm_b, out=norm_r.copy(), where=norm_b > 0)
     return float(relative.max()) if relative.size else 0.0

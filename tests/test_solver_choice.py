@@ -222,3 +222,24 @@ def test_right_hand_sides_in_blocks_give_the_same_voltages(monkeypatch):
     monkeypatch.setattr(resistance, "RHS_BLOCK_VALUES", 2 * graph.n_nodes)   # two columns per block
     blocked = lf.patch_voltages(graph, method="superlu").potential
     np.testing.assert_array_equal(blocked, whole)
+
+
+class TestMemoryAwareChoice:
+    def test_a_factor_that_would_not_fit_falls_back_to_multigrid_with_a_reason(self, caplog):
+        need = solve.factor_bytes(1_000_000, "superlu")
+        with caplog.at_level("INFO", logger="landflow"):
+            assert solve.choose_method(1_000_000, 19, memory=need / 0.7 * 1.01, engine="superlu") == "direct"
+            assert solve.choose_method(1_000_000, 19, memory=need / 0.7 * 0.99, engine="superlu") == "multigrid"
+        assert "multigrid instead of a direct factorisation: the superlu factor of 1000000 unknowns" in caplog.text
+
+    def test_the_estimate_bounds_a_measured_superlu_factor(self):
+        # SuperLU's own count of the nonzeros of L and U, 12 bytes each (value and row index), against the
+        # estimate used by 'auto' (which must not be smaller, or auto could pick a factor that does not fit)
+        graph = lognormal_graph(150, 150, [(5, 5), (140, 140)])
+        voltages = lf.patch_voltages(graph, method="superlu")
+        record = voltages.solvers[0].record()
+        assert 12 * record["factor_nonzeros"] <= solve.factor_bytes(record["unknowns"], "superlu")
+
+    def test_available_memory_is_read_on_linux(self):
+        memory = solve.available_memory()
+        assert memory is None or memory > 0

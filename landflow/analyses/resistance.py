@@ -9,7 +9,7 @@ import pandas as pd
 
 from ..errors import InputError
 from ..graph import nested_dissection_order
-from ..solve import choose_method, direct_engine, factorize
+from ..solve import available_memory, choose_method, direct_engine, factorize
 
 __all__ = ["PatchVoltages", "patch_voltages", "effective_resistance", "resistance_table"]
 
@@ -100,7 +100,8 @@ def patch_voltages(graph, *, method="auto", tolerance=1e-8, progress=None):
             continue
         ground = members[0]
         n_unknowns = int(np.count_nonzero(comp == c)) - 1
-        wanted = choose_method(n_unknowns, members.size - 1) if method == "auto" else method
+        wanted = (choose_method(n_unknowns, members.size - 1, memory=available_memory())
+                  if method == "auto" else method)
         if wanted == "superlu" or wanted == "direct" and direct_engine() == "superlu":
             # Unknowns in nested-dissection order: the factor is then far sparser than with
             # SuperLU's own minimum-degree ordering on a grid (docs/performance.md).

@@ -344,6 +344,7 @@ def check_study(study):
             pass
     ctx = RunContext(study, study.output_folder)
     _check_steps(ctx)
+    ctx.patch_weight  # reads the weights and warns, as a run does, when every one is 0
     graph = ctx.graph
     return {"cells": graph.n_cells, "nodes": graph.n_nodes,
             "patches": graph.n_patches, "pieces": graph.n_pieces,

@@ -327,3 +327,35 @@ def test_verify_finds_edited_and_deleted_outputs(landscape):
     assert "changed since the run: report.md" in bad.stderr
     assert "missing: effective_resistance_matrix.csv" in bad.stderr
     assert not is_up_to_date(load_study(study))
+
+
+def _alive(pid):
+    try:
+        state = Path(f"/proc/{pid}/stat").read_text().rsplit(")", 1)[1].split()[0]
+    except OSError:
+        return False
+    return state != "Z"
+
+
+@pytest.mark.skipif(not Path("/proc/self/stat").exists(), reason="needs /proc to find the worker processes")
+def test_batch_workers_end_when_the_batch_process_is_killed(tmp_path):
+    study = slow_landscape(tmp_path)
+    env = {"PYTHONPATH": str(ROOT), "PATH": "/usr/bin:/bin", "HOME": str(tmp_path)}
+    batch = subprocess.Popen([sys.executable, "-m", "landflow", "batch", str(study), "--workers", "1",
+                              "--summary", str(tmp_path / "s.csv")], env=env, stdout=subprocess.DEVNULL,
+                             stderr=subprocess.DEVNULL)
+    deadline = time.monotonic() + 60
+    workers = []
+    while time.monotonic() < deadline and not workers:
+        staging = list((tmp_path / "results").glob(".landflow-staging-*")) if (tmp_path / "results").exists() else []
+        if staging:
+            workers = [int(p.name.rsplit("-", 1)[1]) for p in staging]
+        time.sleep(0.01)
+    assert workers, "the batch never started its run"
+    batch.kill()                               # no chance to clean up or to tell its workers
+    batch.wait()
+    deadline = time.monotonic() + 30
+    while time.monotonic() < deadline and any(_alive(w) for w in workers):
+        time.sleep(0.05)
+    assert not any(_alive(w) for w in workers)
+    assert not list((tmp_path / "results").glob(".landflow-staging-*"))    # the worker cleaned up on its way out
