@@ -31,7 +31,7 @@ def _svg(fig, name, titles=None):
     """The figure as inline SVG; ``titles`` maps a gid to hover texts for its marks, in drawing order."""
     import matplotlib
     buffer = io.StringIO()
-    with matplotlib.rc_context({**style.matplotlib_style(), "svg.hashsalt": name, "svg.id": f"chart-{name}"}):
+    with matplotlib.rc_context({**style.matplotlib_style(), "svg.hashsalt": name}):
         fig.savefig(buffer, format="svg", metadata={"Date": None})  # same folder, same page
     text = buffer.getvalue()
     text = text[text.index("<svg"):]
