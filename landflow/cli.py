@@ -6,6 +6,7 @@ import argparse
 import logging
 import signal
 import sys
+from pathlib import Path
 
 from . import __version__
 from .errors import LandflowError
@@ -24,6 +25,11 @@ def _parser():
     commands = parser.add_subparsers(dest="command", metavar="COMMAND")
     run = commands.add_parser("run", parents=[common], help="run a study and write its outputs")
     run.add_argument("study", help="study file (TOML)")
+    run.add_argument("--open", action="store_true", help="open report.html in the default web browser when the run ends")
+    report = commands.add_parser("report", parents=[common],
+                                 help="remake report.html and report.md of a finished output folder (no solving)")
+    report.add_argument("folder", help="output folder of a finished run (it holds manifest.json)")
+    report.add_argument("--open", action="store_true", help="open report.html in the default web browser")
     check = commands.add_parser("check", parents=[common], help="validate a study and its inputs without solving")
     check.add_argument("study", help="study file (TOML)")
     batch = commands.add_parser(
@@ -115,6 +121,14 @@ def main(argv=None):
         signal.signal(signal.SIGTERM, previous)
 
 
+def _open_page(page):
+    """Open a report page in the default web browser; a machine without one gets a message, not an error."""
+    import webbrowser
+    if not webbrowser.open(Path(page).resolve().as_uri()):
+        print(f"landflow: no web browser found to open {page}; open it by hand.", file=sys.stderr)
+    return 0
+
+
 def _dispatch(args):
     from .study.run import check_study, run_study
     if args.command == "verify":
@@ -126,6 +140,11 @@ def _dispatch(args):
             return 1
         print(f"landflow: every output in {args.folder} is as its run wrote it")
         return 0
+    if args.command == "report":
+        from .report import rebuild_reports
+        page = rebuild_reports(args.folder)
+        print(f"landflow: wrote {page} and report.md from the folder's manifest and outputs")
+        return _open_page(page) if args.open else 0
     if args.command == "batch":
         # the progress display owns the terminal; each run's details are in its report.md
         if not args.verbose:
@@ -148,6 +167,8 @@ def _dispatch(args):
         manifest = run_study(args.study)
         print(f"landflow: wrote {len(manifest['outputs'])} outputs to {manifest['folder']} "
               f"in {manifest['timings_seconds']['total']:.1f} s")
+        if args.open:
+            return _open_page(Path(manifest["folder"]) / "report.html")
     else:
         summary = check_study(args.study)
         print(f"landflow: {args.study} is valid: {summary['cells']:,} landscape cells, "

@@ -38,7 +38,7 @@ CAUTION = ("These are model outputs. They depend on the resistance values and on
 VOLTAGES_PURPOSE = "patch voltages (effective resistance, current)"
 WALK_PURPOSE = "absorbing walk (every patch absorbing)"
 
-_DEPENDENCIES = ("numpy", "scipy", "pandas", "rasterio", "scikit-image", "pyamg", "matplotlib")
+_DEPENDENCIES = ("numpy", "scipy", "pandas", "rasterio", "scikit-image", "pyamg", "matplotlib", "jinja2")
 
 
 class RunContext:
@@ -54,11 +54,14 @@ class RunContext:
         self.outputs = []
         self.warnings = []
         self.timings = {}
+        self.stages = []         # (name, start, end) in seconds since the context was made, for the timeline
+        self.step = None         # the analysis now running: outputs and shared solves record it
+        self.summary_keys = {}   # which key numbers each analysis added
+        self._started = time.perf_counter()
         self.inputs = {}
         self._aligned = {}
         self.summary = {}
         self.solvers = []
-        self.step = None
         self.shared_users = {}
         self._load()
 
@@ -244,10 +247,11 @@ class RunContext:
         self.warnings.append(message)
 
     def timed(self, name):
-        return _Timer(self.timings, name)
+        return _Timer(self.timings, name, self.stages, self._started)
 
     def _record(self, name, description, units):
-        self.outputs.append({"file": name, "description": description, "units": units})
+        self.outputs.append({"file": name, "description": description, "units": units,
+                             **({"analysis": self.step} if self.step else {})})
         return self.folder / name
 
     def write_raster(self, name, values, *, description, units, per_node=True):
@@ -262,13 +266,27 @@ class RunContext:
         path = self._record(name, description, units)
         write_csv(path, table, **kwargs)
 
-    def quicklook(self, name, array, *, title, units, log_scale=True, categorical=False):
+    def quicklook(self, name, array, *, title, units, log_scale=True, categorical=False, kind=None,
+                  backdrop=False, marks=None, mark_label="landscape changed here", class_names=None,
+                  class_colours=None):
+        """Save a map of a cell array (PNG) and record it. ``kind`` is one of :data:`landflow.maps.KINDS`;
+        without it, ``categorical`` means "classes" and ``log_scale`` "log" (else "magnitude").
+        ``backdrop`` lays the landscape's resistance in faint grey under a sparse layer; ``marks`` (bool
+        cells) are outlined, such as the cells a what-if changed."""
         if not self.study.settings["output"]["quicklooks"]:
             return
-        from ..report import quicklook
+        from ..maps import MapGeometry, quicklook
+        kind = kind or ("classes" if categorical else "log" if log_scale else "magnitude")
         path = self._record(name, f"quick-look picture: {title}", units)
-        quicklook(path, array, patches=self.patches.labels, title=title, units=units, log_scale=log_scale,
-                  categorical=categorical)
+        path.parent.mkdir(parents=True, exist_ok=True)
+        resistance = None
+        if backdrop:
+            values = np.where(self.grid.mask, self.grid.values, np.nan)
+            resistance = values if self.kind == "resistance" else 1.0 / values
+        quicklook(path, array, MapGeometry.from_grid(self.grid), kind=kind, title=title, units=units,
+                  patches=self.patches.labels, patch_names=getattr(self.patches, "names", None),
+                  landscape=self.graph.node_of_cell >= 0, backdrop=resistance, marks=marks,
+                  mark_label=mark_label, class_names=class_names, class_colours=class_colours)
 
 
 def file_sha256(path):
@@ -295,8 +313,8 @@ def _grid_from_suitability(grid, land):
 
 
 class _Timer:
-    def __init__(self, timings, name):
-        self.timings, self.name = timings, name
+    def __init__(self, timings, name, stages=None, origin=0.0):
+        self.timings, self.name, self.stages, self.origin = timings, name, stages, origin
 
     def __enter__(self):
         self.start = time.perf_counter()
@@ -305,6 +323,9 @@ class _Timer:
     def __exit__(self, *exc):
         seconds = time.perf_counter() - self.start
         self.timings[self.name] = round(self.timings.get(self.name, 0.0) + seconds, 3)
+        if self.stages is not None:
+            self.stages.append({"stage": self.name, "start": round(self.start - self.origin, 3),
+                                "end": round(self.start - self.origin + seconds, 3)})
         if exc[0] is None:
             log.info("%s done in %.1f s", self.name, seconds)
 
@@ -413,15 +434,14 @@ def run_study(study):
                              per_node=False, units="resistance per map unit",
                              description="resistance made from the suitability raster by the study's transform")
         for name, settings in study.analyses.items():
-            ctx.step = name
+            ctx.step, before = name, set(ctx.summary)
             with ctx.timed(name):
                 ANALYSES[name].run(ctx, settings)
+            ctx.summary_keys[name] = [k for k in ctx.summary if k not in before]
         ctx.step = None
         manifest = _manifest(ctx, time.perf_counter() - started, run_id=out.run_id)
-        from ..report import write_report
-        write_report(out.staging / "report.md", manifest, CAUTION)
-        manifest["outputs"].append({"file": "report.md", "description": "a plain account of the run",
-                                    "units": "", "sha256": file_sha256(out.staging / "report.md")})
+        from ..report import write_reports
+        write_reports(out.staging, manifest)
         with open(out.staging / "manifest.json", "w", encoding="utf-8") as fh:
             json.dump(manifest, fh, indent=2, sort_keys=False)
             fh.write("\n")
@@ -499,7 +519,9 @@ def _manifest(ctx, seconds, run_id=None):
         "solvers": solvers,
         "outputs": outputs,
         "summary": ctx.summary,
+        "summary_by_analysis": ctx.summary_keys,
         "warnings": ctx.warnings,
         "timings_seconds": {**ctx.timings, "total": round(seconds, 3)},
+        "stages": ctx.stages,
         "caution": CAUTION,
     }

@@ -42,11 +42,11 @@ def run(ctx, settings):
                                  description="probability that a walker from each cell dies before entering "
                                              "any patch")
         ctx.quicklook("death_probability.png", cells, title="Probability of dying before reaching a patch",
-                      units=units, log_scale=False)
+                      units=units, kind="probability")
         inside = walk.transient
         ctx.summary["death probability off patches (mean / max)"] = (
-            f"{death[inside].mean():.4g} / {death[inside].max():.4g}" if inside.size else "n/a")
+            f"{death[inside].mean():.4g} / {death[inside].max():.4g} (probability, 0 to 1)" if inside.size else "n/a")
     total = probability.sum(axis=1) + death
     ok = total[walk.transient]
     if ok.size:
-        ctx.summary["absorption + death, largest distance from 1"] = f"{np.abs(ok - 1).max():.2e}"
+        ctx.summary["absorption + death, largest distance from 1"] = f"{np.abs(ok - 1).max():.2e} (probability)"

@@ -53,6 +53,10 @@ def run(ctx, settings):
                          units="class: 0 outside, 1 corridor, 2 pinch point",
                          description=f"corridor of patches {ids[a]}-{ids[b]} holding "
                                      f"{settings['corridor_share']:g} of the summed current, and its pinch points")
+        ctx.quicklook(pair_map(ids[a], ids[b], "corridor.png"), np.where(classes > 0, classes, np.nan),
+                      title=f"Corridor of patches {ids[a]}-{ids[b]} and its pinch points", units="class",
+                      kind="classes", backdrop=True, class_names={1: "corridor", 2: "pinch point"},
+                      class_colours={1: "#88ccee", 2: "#882255"})
         overlap += found.inside
         pinches += found.pinch
         tables.append(corridor_cells_table(found, ctx.grid, ids, top=settings["top_cells"]))
@@ -67,5 +71,7 @@ def run(ctx, settings):
                                 "of their centres and whether each is a pinch point",
                     units="row/col; map units; A per A injected; 1")
     ctx.quicklook("corridor_overlap.png", overlap, title="Corridors: pairs sharing each cell",
-                  units="number of pairs", log_scale=False)
-    ctx.summary["pinch points (cells, any mapped pair)"] = str(int(np.nansum(pinches > 0)))
+                  units="number of pairs", kind="count", backdrop=True)
+    ctx.quicklook("pinch_points.png", pinches, title="Pinch points: pairs squeezing through each cell",
+                  units="number of pairs", kind="count", backdrop=True)
+    ctx.summary["pinch points (any mapped pair)"] = f"{int(np.nansum(pinches > 0)):,} cells"

@@ -26,4 +26,4 @@ def run(ctx, settings):
     finite = finite[np.isfinite(finite)]
     if finite.size:
         ctx.summary["effective resistance (min / median / max)"] = (
-            f"{finite.min():.4g} / {np.median(finite):.4g} / {finite.max():.4g}")
+            f"{finite.min():.4g} / {np.median(finite):.4g} / {finite.max():.4g} resistance x map unit")

@@ -34,7 +34,7 @@ def run(ctx, settings):
         cells = ctx.write_raster(pair_map(a, b, f"hitting_probability_{a}_before_{b}.tif"), h, units=units,
                                  description=f"probability that a walker from each cell reaches patch {a} "
                                              f"before patch {b}")
-        ctx.quicklook(pair_map(a, b, f"hitting_probability_{a}_before_{b}.png"), cells, units=units, log_scale=False,
+        ctx.quicklook(pair_map(a, b, f"hitting_probability_{a}_before_{b}.png"), cells, units=units, kind="probability",
                       title=f"Probability of reaching patch {a} before patch {b}")
     for a in singles:
         with ctx.forward_warnings():
@@ -42,7 +42,7 @@ def run(ctx, settings):
         cells = ctx.write_raster(f"hitting_probability_{a}_before_any_other.tif", h, units=units,
                                  description=f"probability that a walker from each cell reaches patch {a} "
                                              "before any other patch")
-        ctx.quicklook(f"hitting_probability_{a}_before_any_other.png", cells, units=units, log_scale=False,
+        ctx.quicklook(f"hitting_probability_{a}_before_any_other.png", cells, units=units, kind="probability",
                       title=f"Probability of reaching patch {a} before any other patch")
     ctx.add_solvers("hitting probability (two patches absorbing)",
                     [other.solver for other in walk.related.values()])

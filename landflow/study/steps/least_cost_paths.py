@@ -29,7 +29,7 @@ def run(ctx, settings):
                              description="how many pairs' cheapest routes pass each cell (patch cells: "
                                          "routes that start, end or pass there)")
     ctx.quicklook("least_cost_paths.png", np.where(cells > 0, cells, np.nan), title="Least-cost paths",
-                  units="number of pairs", log_scale=False)
+                  units="number of pairs", kind="count", backdrop=True)
     if settings["pair_route_maps"]:
         ids = graph.patch_ids
         k = graph.n_patches

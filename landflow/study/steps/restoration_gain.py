@@ -48,7 +48,7 @@ def run(ctx, settings):
                      units="objective units (resistance x map unit x pair weight)",
                      description="gain times the cell's own value: the first-order drop of the objective if "
                                  "the cell's value changed by 100% (f times this for a fraction f)")
-    ctx.quicklook("restoration_gain.png", gain, title="Restoration gain", units=units)
+    ctx.quicklook("restoration_gain.png", gain, title="Restoration gain", units=units, kind="log")
     flat = gain.reshape(-1)
     landscape = np.flatnonzero(np.isfinite(flat))          # cells outside the landscape have no gain to list
     top = landscape[np.argsort(-flat[landscape], kind="stable")[: settings["top_cells"]]]

@@ -2,6 +2,8 @@
 
 import logging
 
+import numpy as np
+
 from ...analyses.current import pair_weights
 from ...analyses.priority import scenario_change
 from ...analyses.resistance import patch_voltages
@@ -59,9 +61,14 @@ def run(ctx, settings):
     ctx.write_raster("current_density_change.tif", change, per_node=False,
                      units="A (current density after minus before)",
                      description="change of the current density through each cell caused by the change")
-    ctx.quicklook("current_density_change.png", change, title="Change of current density",
-                  units="A", log_scale=False)
+    before_values = np.where(ctx.grid.mask, ctx.grid.values, np.nan)
+    after_values = np.where(grid.mask, grid.values, np.nan)
+    changed = ~((before_values == after_values) | (np.isnan(before_values) & np.isnan(after_values)))
+    ctx.quicklook("current_density_change.png", change, title="Change of current density (after minus before)",
+                  units="A (current density after minus before)", kind="change", marks=changed,
+                  mark_label="landscape changed here")
     before_c, after_c = totals["connectivity_before"], totals["connectivity_after"]
     ctx.summary["scenario: overall connectivity before / after"] = (
-        f"{before_c:.4g} / {after_c:.4g} ({100 * (after_c - before_c) / before_c:+.2f}%)"
-        if before_c > 0 else f"{before_c:.4g} / {after_c:.4g}")
+        f"{before_c:.4g} / {after_c:.4g} pair weight per resistance x map unit "
+        f"({100 * (after_c - before_c) / before_c:+.2f}%)"
+        if before_c > 0 else f"{before_c:.4g} / {after_c:.4g} pair weight per resistance x map unit")
