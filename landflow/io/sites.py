@@ -23,16 +23,32 @@ class Patches:
     weight : dict {patch id: float} or None
         Each patch's weight in the pair sum (population size, area, quality).
     source : str
+    names : dict {code: str} or None
+        For patches read with text ids, the text of each numeric code used
+        inside landflow (codes 1, 2, ... in sorted order of the text); None for
+        numeric ids, which are their own codes.
     """
 
     labels: np.ndarray
     weight: dict | None = None
     source: str = "array"
+    names: dict | None = None
 
     @property
     def ids(self):
         ids = np.unique(self.labels)
         return ids[ids != 0]
+
+    def name_of(self, code):
+        """The id a user gave patch ``code``: its text id, or the number itself."""
+        if self.names is None:
+            return int(code)
+        return self.names.get(int(code), int(code))
+
+    @property
+    def id_table(self):
+        """``{code: id}`` for every patch: the text id for text ids, else the number (for legends and tables)."""
+        return {int(c): self.name_of(c) for c in self.ids}
 
 
 def read_patch_raster(path, grid):
@@ -52,8 +68,12 @@ def read_patch_raster(path, grid):
     return Patches(values.astype(np.int64), None, str(path))
 
 
-def read_patch_points(path, grid, *, weight_column=None):
+def read_patch_points(path, grid, *, weight_column=None, crs=None):
     """Patches from a CSV of points with columns ``x``, ``y``, ``id`` (map coordinates of the grid's CRS).
+
+    With ``crs`` (anything pyproj reads: "EPSG:4326", WKT, ...), ``x`` and
+    ``y`` are in that CRS and are reprojected to the grid's CRS with pyproj
+    (for EPSG:4326, x is longitude and y latitude).
 
     Each point marks the cell it falls in. Several points may share an id
     (one patch of several cells); two different ids in one cell are an error.
@@ -90,7 +110,10 @@ def read_patch_points(path, grid, *, weight_column=None):
             line = int(bad.argmax()) + 2
             raise InputError(f"{path}, line {line}: {weight_column!r} is {weight[line - 2]:g}; "
                              "a patch weight must be a finite number >= 0.")
-    rows, cols = grid.rowcol(table["x"].to_numpy(), table["y"].to_numpy())
+    x, y = table["x"].to_numpy(), table["y"].to_numpy()
+    if crs is not None:
+        x, y = _reproject_points(x, y, crs, grid, path)
+    rows, cols = grid.rowcol(x, y)
     inside = (rows >= 0) & (rows < grid.shape[0]) & (cols >= 0) & (cols < grid.shape[1])
     if not inside.all():
         n = int(np.argmin(inside))
@@ -119,6 +142,21 @@ def read_patch_points(path, grid, *, weight_column=None):
             raise InputError(f"{path}: patch ids with several points must repeat the same {weight_column!r}.")
         weight = {int(k): float(v) for k, v in per_id.first().items()}
     return Patches(labels, weight, str(path))
+
+
+def _reproject_points(x, y, crs, grid, path):
+    from pyproj import CRS, Transformer
+    from pyproj.exceptions import CRSError
+    try:
+        source = CRS.from_user_input(crs)
+    except CRSError as exc:
+        raise InputError(f"{path}: cannot read the CRS {crs!r} of its points ({exc}); give one such as "
+                         "'EPSG:4326'.") from None
+    if grid.crs is None:
+        raise InputError(f"{path}: the points are in {crs} but the raster {grid.source} has no CRS to "
+                         "reproject them to. Give the raster a CRS.")
+    move = Transformer.from_crs(source, CRS.from_user_input(grid.crs), always_xy=True)
+    return move.transform(x, y)
 
 
 def patch_weight_from_raster(path, grid, patches):

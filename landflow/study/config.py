@@ -45,8 +45,15 @@ def _non_negative(value):
 
 def _patch_rules(patches):
     if patches["raster"] is not None and patches["weight_column"] is not None:
-        return ("'patches.weight_column' only applies to patch points; with a patch raster use "
+        return ("'patches.weight_column' only applies to patch points or features; with a patch raster use "
                 "'patches.weight_raster'")
+    if patches["features"] is None:
+        for key in ("layer", "id_column", "all_touched"):
+            if patches[key] not in (None, False):
+                return f"'patches.{key}' only applies to 'patches.features' (a vector file); remove it"
+    if patches["crs"] is not None and patches["points"] is None:
+        return ("'patches.crs' gives the CRS of the CSV points' x and y; vector files and rasters carry their "
+                "own CRS. Remove it")
     return None
 
 
@@ -88,13 +95,23 @@ SECTIONS = {
     "patches": Section({
         "raster": Key(str, None, "integer raster of patch labels on the landscape's grid, 0 = no patch", path="input",
                       unit="label", example="patches.tif"),
-        "points": Key(str, None, "CSV with columns x, y, id (map coordinates in the landscape's CRS)", path="input",
-                      unit="map units", example="sites.csv"),
-        "weight_column": Key(str, None, "column of the points CSV holding each patch's weight in the pair sum "
-                                        "(population size, area, quality)"),
+        "points": Key(str, None, "CSV with columns x, y, id (map coordinates in the landscape's CRS, or in "
+                                 "'crs')", path="input", unit="map units", example="sites.csv"),
+        "crs": Key(str, None, "CRS of the CSV points' x and y when not the landscape's (EPSG:4326: x = longitude, "
+                              "y = latitude); they are reprojected with pyproj", example="EPSG:4326"),
+        "features": Key(str, None, "vector file of points or polygons (GeoPackage, GeoJSON, Shapefile, "
+                                   "FlatGeobuf), reprojected to the landscape's CRS; a point marks its cell, a "
+                                   "polygon the cells whose centres it holds", path="input", example="ponds.gpkg"),
+        "layer": Key(str, None, "layer of 'features' to read (needed when the file has several)"),
+        "id_column": Key(str, None, "column of 'features' holding each patch's id: whole numbers > 0 or text "
+                                    "(default 'id'); text ids get numeric codes listed in the manifest"),
+        "all_touched": Key(bool, False, "polygons of 'features' claim every cell they touch, not only cells whose "
+                                        "centre they hold (for thin polygons)"),
+        "weight_column": Key(str, None, "column of the points CSV or of 'features' holding each patch's weight in "
+                                        "the pair sum (population size, area, quality)"),
         "weight_raster": Key(str, None, "raster summed over each patch's cells to give its weight in the pair "
                                         "sum", path="input", unit="weight per cell", example="population.tif"),
-    }, "Habitat patches or sample sites.", exactly_one=(("raster", "points"),), check=_patch_rules,
+    }, "Habitat patches or sample sites.", exactly_one=(("raster", "points", "features"),), check=_patch_rules,
         renamed={"strength_column": "weight_column", "strength_raster": "weight_raster"}),
     "mortality": Section({
         "raster": Key(str, None, "raster of per-step death probability in [0, 1) on the landscape's grid; "

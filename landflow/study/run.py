@@ -35,7 +35,8 @@ CAUTION = ("These are model outputs. They depend on the resistance values and on
            "random-walk and circuit models. Use them for decision support alongside field evidence, local "
            "regulation and licensed professional practice, not as a substitute for them.")
 
-_DEPENDENCIES = ("numpy", "scipy", "pandas", "rasterio", "scikit-image", "pyamg", "matplotlib")
+_DEPENDENCIES = ("numpy", "scipy", "pandas", "rasterio", "scikit-image", "pyamg", "matplotlib", "geopandas",
+                 "pyogrio", "pyproj", "shapely")
 
 
 class RunContext:
@@ -74,9 +75,15 @@ class RunContext:
             spec = self.study.settings["patches"]
             if spec["raster"] is not None:
                 self.patches = read_patch_raster(self._input(spec["raster"]), self.grid)
+            elif spec["features"] is not None:
+                from ..io.vectors import read_patch_features
+                self.patches = read_patch_features(self._input(spec["features"]), self.grid, layer=spec["layer"],
+                                                   id_column=spec["id_column"] or "id",
+                                                   weight_column=spec["weight_column"],
+                                                   all_touched=spec["all_touched"])
             else:
                 self.patches = read_patch_points(self._input(spec["points"]), self.grid,
-                                                 weight_column=spec["weight_column"])
+                                                 weight_column=spec["weight_column"], crs=spec["crs"])
             if spec["weight_raster"] is not None:
                 self.patches.weight = patch_weight_from_raster(
                     self._input(spec["weight_raster"]), self.grid, self.patches)
@@ -220,7 +227,7 @@ class RunContext:
 
     def write_table(self, name, table, *, description, units="see docs/outputs.md", **kwargs):
         path = self._record(name, description, units)
-        write_csv(path, table, **kwargs)
+        write_csv(path, with_patch_names(table, self.patches.names), **kwargs)
 
     def quicklook(self, name, array, *, title, units, log_scale=True, categorical=False):
         if not self.study.settings["output"]["quicklooks"]:
@@ -229,6 +236,30 @@ class RunContext:
         path = self._record(name, f"quick-look picture: {title}", units)
         quicklook(path, array, patches=self.patches.labels, title=title, units=units, log_scale=log_scale,
                   categorical=categorical)
+
+
+#: Table columns that hold patch ids; with text ids each gets a ``<column>_name`` column beside it.
+PATCH_COLUMNS = ("patch", "patch_a", "patch_b", "release_patch", "arrival_patch")
+
+
+def with_patch_names(table, names):
+    """``table`` with the text id of each patch beside every patch-id column (and index), when ids are text."""
+    if not names:
+        return table
+    table = table.copy()
+    lookup = {int(k): v for k, v in names.items()}
+
+    def name(value):
+        try:
+            return lookup.get(int(value), "")
+        except (TypeError, ValueError):
+            return ""
+    if table.index.name in PATCH_COLUMNS:
+        table.index = table.index.map(name).rename(f"{table.index.name}_name")
+        table.columns = [name(c) if isinstance(c, (int, np.integer)) else c for c in table.columns]
+    for col in [c for c in table.columns if c in PATCH_COLUMNS]:
+        table.insert(table.columns.get_loc(col) + 1, f"{col}_name", table[col].map(name))
+    return table
 
 
 def file_sha256(path):
@@ -454,7 +485,9 @@ def _manifest(ctx, seconds, run_id=None):
                       "cell_size": list(ctx.grid.cell_size),
                       "crs": ctx.grid.crs.to_string() if ctx.grid.crs else None,
                       "cells": graph.n_cells, "nodes": graph.n_nodes, "edges": graph.n_edges,
-                      "patches": [int(p) for p in graph.patch_ids], "pieces": graph.n_pieces},
+                      "patches": [int(p) for p in graph.patch_ids], "pieces": graph.n_pieces,
+                      **({"patch_names": {str(int(p)): ctx.patches.name_of(p) for p in graph.patch_ids}}
+                         if ctx.patches.names else {})},
         "solvers": solvers,
         "outputs": outputs,
         "summary": ctx.summary,
