@@ -10,17 +10,23 @@ from ..errors import InputError
 from ..grid import Grid
 from ._atomic import atomic_path
 
-__all__ = ["read_grid", "read_aligned", "write_geotiff", "GEOTIFF_PROFILE", "NODATA"]
+__all__ = ["read_grid", "read_aligned", "write_cog", "write_geotiff", "COG_PROFILE", "GEOTIFF_PROFILE", "NODATA"]
 
 #: Nodata value of every float raster landflow writes.
 NODATA = -9999.0
 
-#: Creation options of every GeoTIFF landflow writes; callers may overlay their own.
-GEOTIFF_PROFILE = {
-    "driver": "GTiff", "dtype": "float32", "count": 1, "nodata": NODATA,
-    "tiled": True, "blockxsize": 256, "blockysize": 256,
-    "compress": "deflate", "predictor": 3, "zlevel": 6,
+#: Creation options of every raster landflow writes: a Cloud-Optimized GeoTIFF (GDAL's COG driver) with
+#: 256 x 256 internal tiles, overviews down to one tile, deflate compression with the floating-point
+#: predictor (PREDICTOR=YES picks predictor 3 for float data). Callers may overlay their own options
+#: (``compress="zstd"``, ``resampling="nearest"`` for categorical maps, ...).
+COG_PROFILE = {
+    "driver": "COG", "dtype": "float32", "count": 1, "nodata": NODATA,
+    "blocksize": 256, "compress": "deflate", "predictor": "YES", "level": 6,
+    "overviews": "auto", "resampling": "average",
 }
+
+#: The former name of :data:`COG_PROFILE`.
+GEOTIFF_PROFILE = COG_PROFILE
 
 
 def read_grid(path, *, what="raster", allow_geographic=False, integer=False, plain_grid_ok=False):
@@ -113,25 +119,59 @@ def read_aligned(path, grid, *, what="raster", integer=False):
     return other
 
 
-def write_geotiff(path, array, grid, **profile):
-    """Write ``array`` on ``grid`` as a compressed float32 GeoTIFF (:data:`GEOTIFF_PROFILE`).
+def write_cog(path, array, *, transform, crs, description=None, units=None, **profile):
+    """Write a 2-D array as a single-band Cloud-Optimized GeoTIFF (:data:`COG_PROFILE`), atomically.
 
-    The file is tiled in 256 x 256 blocks when the grid holds at least one
-    block, striped otherwise. NaN cells are written as :data:`NODATA`.
-    ``profile`` overlays the creation options. The file appears under its
-    final name only once it is complete.
+    Parameters
+    ----------
+    path : str or Path
+    array : ndarray, shape (rows, cols)
+        NaN cells are written as the profile's nodata value (:data:`NODATA`).
+    transform : affine.Affine
+    crs : rasterio CRS, str or None
+    description : str, optional
+        The band description (what the values are).
+    units : str, optional
+        The band's unit type (GDAL's ``SetUnitType``), also stored as the band
+        metadata item ``units``.
+    **profile
+        Creation options overlaying :data:`COG_PROFILE`.
+
+    Notes
+    -----
+    The COG driver only copies a finished dataset, so rasterio builds the
+    raster in memory and copies it on close (memory: about twice the array).
+    The file appears under its final name only once it is complete
+    (a temporary name beside it, then a rename).
+    """
+    array = np.asarray(array)
+    if array.ndim != 2:
+        raise InputError(f"{path}: expected a 2-D array to write, got shape {array.shape}.")
+    opts = {**COG_PROFILE, "height": array.shape[0], "width": array.shape[1], "transform": transform,
+            "crs": crs, **profile}
+    data = array.astype(opts["dtype"])
+    if np.issubdtype(data.dtype, np.floating) and opts.get("nodata") is not None:
+        data = np.where(np.isnan(data), opts["nodata"], data)
+    if not np.issubdtype(data.dtype, np.floating) and opts.get("predictor") == "YES":
+        opts["predictor"] = "NO"
+    with atomic_path(path) as tmp:
+        with rasterio.open(tmp, "w", **opts) as dst:
+            dst.write(data, 1)
+            if description:
+                dst.set_band_description(1, description)
+            if units:
+                dst.set_band_unit(1, units)
+                dst.update_tags(1, units=units)
+
+
+def write_geotiff(path, array, grid, *, description=None, units=None, **profile):
+    """Write ``array`` on ``grid`` as a float32 Cloud-Optimized GeoTIFF; see :func:`write_cog`.
+
+    NaN cells are written as :data:`NODATA`; ``profile`` overlays the
+    creation options of :data:`COG_PROFILE`.
     """
     array = np.asarray(array)
     if array.shape != grid.shape:
         raise InputError(f"{path}: array of shape {array.shape} does not fit the grid {grid.shape} of {grid.source}.")
-    opts = {**GEOTIFF_PROFILE, "height": grid.shape[0], "width": grid.shape[1],
-            "transform": grid.transform, "crs": grid.crs, **profile}
-    if grid.shape[0] < opts["blockysize"] or grid.shape[1] < opts["blockxsize"]:
-        opts["tiled"] = False
-        opts.pop("blockxsize"), opts.pop("blockysize")
-    data = array.astype(opts["dtype"])
-    if np.issubdtype(data.dtype, np.floating) and opts["nodata"] is not None:
-        data = np.where(np.isnan(data), opts["nodata"], data)
-    with atomic_path(path) as tmp:
-        with rasterio.open(tmp, "w", **opts) as dst:
-            dst.write(data, 1)
+    write_cog(path, array, transform=grid.transform, crs=grid.crs, description=description, units=units,
+              **profile)

@@ -222,7 +222,7 @@ class RunContext:
         path = self._record(name, description, units)
         path.parent.mkdir(parents=True, exist_ok=True)
         array = self.graph.to_raster(values) if per_node else values
-        write_geotiff(path, array, self.grid)
+        write_geotiff(path, array, self.grid, description=description, units=units)
         return array
 
     def write_table(self, name, table, *, description, units="see docs/outputs.md", **kwargs):
