@@ -129,6 +129,8 @@ SECTIONS = {
     "output": Section({
         "folder": Key(str, "results", "folder for the outputs, relative to the study file", path="output"),
         "quicklooks": Key(bool, True, "write PNG quick-look maps"),
+        "map_layers": Key(bool, True, "write map_layers.gpkg: patches, links between them, least-cost routes and "
+                                      "listed cells as vector layers for a GIS"),
     }, "Where results go."),
 }
 

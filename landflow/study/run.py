@@ -50,6 +50,7 @@ class RunContext:
         self.study = study
         self.folder = Path(folder)
         self.outputs = []
+        self.tables = {}
         self.warnings = []
         self.timings = {}
         self.inputs = {}
@@ -227,6 +228,7 @@ class RunContext:
 
     def write_table(self, name, table, *, description, units="see docs/outputs.md", **kwargs):
         path = self._record(name, description, units)
+        self.tables[name] = table
         write_csv(path, with_patch_names(table, self.patches.names), **kwargs)
 
     def quicklook(self, name, array, *, title, units, log_scale=True, categorical=False):
@@ -405,6 +407,10 @@ def run_study(study):
         for name, settings in study.analyses.items():
             with ctx.timed(name):
                 ANALYSES[name].run(ctx, settings)
+        if study.settings["output"]["map_layers"]:
+            from .vector_layers import write_vector_layers
+            with ctx.timed("vector layers"):
+                write_vector_layers(ctx)
         manifest = _manifest(ctx, time.perf_counter() - started, run_id=out.run_id)
         from ..report import write_report
         write_report(out.staging / "report.md", manifest, CAUTION)
