@@ -32,6 +32,9 @@ class Grid:
         Where the values came from, used in error messages.
     nodata : float or None
         The nodata value of the source file, if any.
+    aligned : dict or None
+        When the values were warped from another grid: the source, the
+        method and both grids (for the manifest).
     """
 
     values: np.ndarray
@@ -40,6 +43,7 @@ class Grid:
     crs: object = None
     source: str = "array"
     nodata: float | None = None
+    aligned: dict | None = None
 
     def __post_init__(self):
         values = np.asarray(self.values)

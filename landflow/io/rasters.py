@@ -10,7 +10,7 @@ from ..errors import InputError
 from ..grid import Grid
 from ._atomic import atomic_path
 
-__all__ = ["read_grid", "read_aligned", "write_cog", "write_geotiff", "COG_PROFILE", "GEOTIFF_PROFILE", "NODATA"]
+__all__ = ["read_grid", "read_aligned", "ALIGN_METHODS", "write_cog", "write_geotiff", "COG_PROFILE", "GEOTIFF_PROFILE", "NODATA"]
 
 #: Nodata value of every float raster landflow writes.
 NODATA = -9999.0
@@ -109,14 +109,73 @@ def read_grid(path, *, what="raster", allow_geographic=False, integer=False, pla
     return Grid(values, mask, transform, crs, source=str(path), nodata=nodata)
 
 
-def read_aligned(path, grid, *, what="raster", integer=False):
-    """Read a raster that must share ``grid``'s shape, transform and CRS."""
+#: How another raster may be brought onto the landscape's grid: rasterio.warp resampling of each name.
+ALIGN_METHODS = ("nearest", "mode", "mean")
+
+
+def read_aligned(path, grid, *, what="raster", integer=False, align=None, record=None):
+    """Read a raster that must share ``grid``'s shape, transform and CRS, or warp it there when asked.
+
+    Parameters
+    ----------
+    align : {"nearest", "mode", "mean"} or None
+        None refuses a raster on another grid. Otherwise the raster is warped
+        onto ``grid`` with ``rasterio.warp.reproject``: ``nearest`` takes the
+        source cell under each target cell centre (labels, classes), ``mode``
+        the most common source value over the target cell (labels from a finer
+        raster), ``mean`` the area-weighted average (rates and probabilities;
+        not counts, whose sum changes with the cell size). Target cells with no
+        source value are nodata. The returned grid's ``aligned`` attribute
+        records what was done.
+    record : list, optional
+        When given, a warped raster's ``aligned`` record is appended to it.
+
+    Raises
+    ------
+    InputError
+        The raster is on another grid and ``align`` is None, or it has no CRS
+        to warp from.
+    """
     other = read_grid(path, what=what, allow_geographic=True, integer=integer, plain_grid_ok=True)
     diff = grid.same_grid(other)
-    if diff:
+    if not diff:
+        return other
+    if align is None:
         raise InputError(f"{path}: the {what} is not on the grid of {grid.source}: {diff}. "
-                         "Resample it onto that grid (same extent, cell size and CRS).")
-    return other
+                         "Resample it onto that grid (same extent, cell size and CRS), or let the study warp it "
+                         "(an [alignment] key: 'nearest', 'mode' or 'mean').")
+    if align not in ALIGN_METHODS:
+        raise InputError(f"{path}: unknown alignment {align!r}; use one of {', '.join(ALIGN_METHODS)}.")
+    if (other.crs is None) != (grid.crs is None):
+        raise InputError(f"{path}: the {what} or the landscape has no CRS, so one cannot be warped onto the other. "
+                         "Give both rasters a CRS.")
+    out = _warp(other, grid, align, what)
+    if record is not None:
+        record.append(out.aligned)
+    return out
+
+
+def _warp(src, grid, align, what):
+    from rasterio.warp import Resampling, reproject
+
+    method = {"nearest": Resampling.nearest, "mode": Resampling.mode, "mean": Resampling.average}[align]
+    integer = np.issubdtype(src.values.dtype, np.integer)
+    if integer:
+        fill = np.iinfo(np.int64).min
+        source = np.where(src.mask, src.values, fill).astype(np.int64)
+        target = np.full(grid.shape, fill, dtype=np.int64)
+    else:
+        fill = np.nan
+        source = np.where(src.mask, src.values, np.nan)
+        target = np.full(grid.shape, np.nan)
+    reproject(source, target, src_transform=src.transform, src_crs=src.crs, src_nodata=fill,
+              dst_transform=grid.transform, dst_crs=grid.crs, dst_nodata=fill, resampling=method)
+    mask = target != fill if integer else np.isfinite(target)
+    return Grid(target, mask, grid.transform, grid.crs, source=src.source, nodata=None if not integer else fill,
+                aligned={"input": src.source, "what": what, "method": align,
+                   "from": {"shape": list(src.shape), "cell_size": list(src.cell_size),
+                            "crs": src.crs.to_string() if src.crs is not None else None},
+                   "to": {"shape": list(grid.shape), "cell_size": list(grid.cell_size)}})
 
 
 def write_cog(path, array, *, transform, crs, description=None, units=None, **profile):

@@ -51,9 +51,16 @@ class Patches:
         return {int(c): self.name_of(c) for c in self.ids}
 
 
-def read_patch_raster(path, grid):
-    """Patch labels from an integer raster on the same grid (0 or nodata = no patch)."""
-    src = read_aligned(path, grid, what="patch raster", integer=True)
+def read_patch_raster(path, grid, *, align=None, record=None):
+    """Patch labels from an integer raster on the same grid (0 or nodata = no patch).
+
+    ``align`` ("nearest" or "mode") warps a raster on another grid onto
+    ``grid``; see :func:`landflow.io.rasters.read_aligned` (also for ``record``).
+    """
+    if align == "mean":
+        raise InputError(f"{path}: patch labels cannot be averaged; align the patch raster with 'nearest' or "
+                         "'mode'.")
+    src = read_aligned(path, grid, what="patch raster", integer=True, align=align, record=record)
     values = np.where(src.mask, src.values, 0)
     if np.issubdtype(values.dtype, np.integer):            # read exactly, whatever the size of the labels
         bad = values < 0
@@ -159,9 +166,9 @@ def _reproject_points(x, y, crs, grid, path):
     return move.transform(x, y)
 
 
-def patch_weight_from_raster(path, grid, patches):
-    """Strength of each patch as the sum of a raster's values over its cells."""
-    src = read_aligned(path, grid, what="patch weight raster")
+def patch_weight_from_raster(path, grid, patches, *, align=None, record=None):
+    """Weight of each patch as the sum of a raster's values over its cells (``align``: see read_aligned)."""
+    src = read_aligned(path, grid, what="patch weight raster", align=align, record=record)
     values = np.where(src.mask, src.values, 0.0)
     bad = ~np.isfinite(values) | (values < 0)
     if bad.any():

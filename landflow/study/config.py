@@ -9,6 +9,7 @@ from pathlib import Path
 from ..errors import ConfigError
 from ..analyses.suitability import TRANSFORMS
 from ..graph import EDGE_RULES, NEIGHBOURS
+from ..io.rasters import ALIGN_METHODS
 from ..solve import METHODS
 from .schema import Key, Section, close_match, validate_section
 
@@ -61,6 +62,25 @@ def _mortality_rules(mortality):
     if mortality["raster"] is not None and mortality["death_per_resistance"] is not None:
         return "has both 'raster' and 'death_per_resistance'; give one of them"
     return None
+
+
+#: Inputs that may be warped onto the landscape's grid: [alignment] key -> what it aligns.
+ALIGNED_INPUTS = {
+    "patch_raster": "alignment of [patches] raster ('nearest' or 'mode')",
+    "weight_raster": "alignment of [patches] weight_raster",
+    "mortality_raster": "alignment of [mortality] raster",
+    "crossing_time": "alignment of [analyses.expected_steps] crossing_time",
+    "release_raster": "alignment of [analyses.expected_visits] release_raster",
+    "changed_landscape": "alignment of [analyses.scenario_change] changed_landscape",
+}
+
+#: Where each aligned input's path is: [alignment] key -> (section or analysis, key).
+ALIGNED_PATHS = {
+    "patch_raster": ("patches", "raster"), "weight_raster": ("patches", "weight_raster"),
+    "mortality_raster": ("mortality", "raster"), "crossing_time": ("expected_steps", "crossing_time"),
+    "release_raster": ("expected_visits", "release_raster"),
+    "changed_landscape": ("scenario_change", "changed_landscape"),
+}
 
 
 SECTIONS = {
@@ -121,6 +141,13 @@ SECTIONS = {
                                     unit="1 / resistance unit"),
     }, "Optional death of walkers on the way, used by the absorbing-walk analyses. Give at most one key; "
        "mortality on patch cells is ignored.", check=_mortality_rules),
+    "alignment": Section({
+        key: Key(str, None, doc, choices=ALIGN_METHODS) for key, doc in ALIGNED_INPUTS.items()
+    }, "Inputs on another grid or CRS than the landscape are refused unless named here; each named one is warped "
+       "onto the landscape's grid with rasterio.warp by the method given: 'nearest' (the source cell under each "
+       "cell centre: labels, classes), 'mode' (the most common source value over the cell: labels from a finer "
+       "raster) or 'mean' (area-weighted average: rates, probabilities; not counts). The manifest records each "
+       "warp. The landscape raster itself is never resampled."),
     "solver": Section({
         "method": Key(str, "auto", "linear solver: auto, direct (sparse LU) or multigrid (AMG + CG)", choices=METHODS),
         "tolerance": Key(float, 1e-8, "relative residual target of iterative solves", check=_tolerance,
@@ -229,4 +256,27 @@ def study_from_dict(raw, *, base_dir=".", source="study", path=None):
                               f"Available: {', '.join(ANALYSES)}.")
     analyses = {name: validate_section(wanted[name], step.SETTINGS, f"analyses.{name}", base_dir, source)
                 for name, step in ANALYSES.items() if name in wanted}
+    for key, method in settings["alignment"].items():
+        if method is None:
+            continue
+        where, name = ALIGNED_PATHS[key]
+        table = settings.get(where, analyses.get(where)) or {}
+        if table.get(name) is None:
+            shown = f"[{where}]" if where in settings else f"[analyses.{where}]"
+            raise ConfigError(f"{source}: 'alignment.{key}' is set but {shown} {name} is not given; remove the "
+                              "alignment key or give that input.")
+    if settings["alignment"]["patch_raster"] == "mean":
+        raise ConfigError(f"{source}: 'alignment.patch_raster' = 'mean' would average patch labels; use 'nearest' "
+                          "or 'mode'.")
     return Study(path, settings, analyses)
+
+
+def aligned_inputs(study):
+    """``{input path as text: alignment method}`` of a study's [alignment] table."""
+    out = {}
+    for key, method in study.settings["alignment"].items():
+        if method is not None:
+            where, name = ALIGNED_PATHS[key]
+            table = study.settings.get(where, study.analyses.get(where)) or {}
+            out[str(table[name])] = method
+    return out

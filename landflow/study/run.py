@@ -24,7 +24,7 @@ from ..grid import Grid
 from ..io.rasters import read_aligned, read_grid, write_geotiff
 from ..io.sites import patch_weight_from_raster, read_patch_points, read_patch_raster
 from ..io.tables import write_csv
-from .config import Study, load_study
+from .config import Study, aligned_inputs, load_study
 from .folder import OutputFolder, check_output_folder, is_landflow_manifest
 
 __all__ = ["run_study", "check_study", "verify_folder", "protected_paths", "RunContext", "CAUTION"]
@@ -55,6 +55,8 @@ class RunContext:
         self.timings = {}
         self.inputs = {}
         self._aligned = {}
+        self._align = aligned_inputs(study)
+        self.alignments = []
         self.summary = {}
         self.solvers = []
         self._load()
@@ -75,7 +77,8 @@ class RunContext:
             self.kind = kind
             spec = self.study.settings["patches"]
             if spec["raster"] is not None:
-                self.patches = read_patch_raster(self._input(spec["raster"]), self.grid)
+                self.patches = read_patch_raster(self._input(spec["raster"]), self.grid,
+                                                 align=self._align.get(str(spec["raster"])), record=self.alignments)
             elif spec["features"] is not None:
                 from ..io.vectors import read_patch_features
                 self.patches = read_patch_features(self._input(spec["features"]), self.grid, layer=spec["layer"],
@@ -87,7 +90,8 @@ class RunContext:
                                                  weight_column=spec["weight_column"], crs=spec["crs"])
             if spec["weight_raster"] is not None:
                 self.patches.weight = patch_weight_from_raster(
-                    self._input(spec["weight_raster"]), self.grid, self.patches)
+                    self._input(spec["weight_raster"]), self.grid, self.patches,
+                    align=self._align.get(str(spec["weight_raster"])), record=self.alignments)
         with self.timed("build graph"):
             self.graph = build_graph(self.grid, self.patches.labels, kind=kind,
                                      neighbours=land["neighbours"], edge_rule=land["edge_rule"])
@@ -104,7 +108,8 @@ class RunContext:
         """Read another raster that must lie on the landscape's grid (mortality, ...), once per run."""
         key = str(path)
         if key not in self._aligned:
-            self._aligned[key] = read_aligned(self._input(path), self.grid, what=what)
+            self._aligned[key] = read_aligned(self._input(path), self.grid, what=what,
+                                              align=self._align.get(key), record=self.alignments)
         return self._aligned[key]
 
     def read_landscape_like(self, path, key):
@@ -494,6 +499,7 @@ def _manifest(ctx, seconds, run_id=None):
                       "patches": [int(p) for p in graph.patch_ids], "pieces": graph.n_pieces,
                       **({"patch_names": {str(int(p)): ctx.patches.name_of(p) for p in graph.patch_ids}}
                          if ctx.patches.names else {})},
+        "alignment": ctx.alignments,
         "solvers": solvers,
         "outputs": outputs,
         "summary": ctx.summary,
