@@ -223,7 +223,7 @@ def build_graph(grid, patches=None, *, kind="resistance", neighbours=8, edge_rul
     node_of_cell = np.full(grid.shape, -1, dtype=np.int64)
     node_of_cell.reshape(-1)[cells] = node
     del cells, node
-    merged = _edges_to_csr(values, mask, node_of_cell, n_nodes, neighbours, grid.cell_size, edge_function)
+    merged = _edges_to_csr(values, mask, node_of_cell, n_nodes, grid, neighbours, edge_function)
     return CellGraph(merged, node_of_cell, patch_ids, grid.shape, neighbours, edge_rule)
 
 
@@ -252,29 +252,45 @@ def _surface(grid, kind, neighbours, edge_rule):
     return mask, values, edge_function
 
 
-def _neighbour_steps(shape, neighbours, cell_size):
+def _neighbour_steps(grid, neighbours):
     """For each neighbour direction: slices ``here`` and ``there`` pairing every cell with that
-    neighbour, and their centre distance. The neighbour always has the larger flat index."""
-    rows, cols = shape
-    width, height = cell_size
-    steps = [(0, 1, float(width)), (1, 0, float(height))]
-    if neighbours == 8:
-        diagonal = float(np.hypot(height, width))
-        steps += [(1, 1, diagonal), (1, -1, diagonal)]
+    neighbour, and their centre distance (a number, or an array over the ``here`` slice when the
+    lengths change from row to row, as on a longitude/latitude grid; see :meth:`Grid.cell_lengths`).
+    The neighbour always has the larger flat index."""
+    rows, cols = grid.shape
+    if grid.is_geographic:
+        ew, ns, diagonal = grid.cell_lengths()
+        steps = [(0, 1, ew), (1, 0, ns)]
+        if neighbours == 8:
+            steps += [(1, 1, diagonal), (1, -1, diagonal)]
+    else:
+        width, height = grid.cell_size
+        steps = [(0, 1, float(width)), (1, 0, float(height))]
+        if neighbours == 8:
+            diagonal = float(np.hypot(height, width))
+            steps += [(1, 1, diagonal), (1, -1, diagonal)]
     for dr, dc, distance in steps:
         here = (slice(0, rows - dr), slice(max(0, -dc), cols - max(0, dc)))
         there = (slice(dr, rows), slice(max(0, dc), cols - max(0, -dc)))
+        if np.ndim(distance):
+            width = cols - abs(dc)
+            distance = np.broadcast_to(np.asarray(distance, dtype=float)[:, None], (rows - dr, width))
         yield here, there, distance
 
 
-def _edges_to_csr(values, mask, node_of_cell, n_nodes, neighbours, cell_size, edge_function):
+def _pick(distance, both):
+    """The distances of the edges selected by ``both`` (a scalar stays a scalar)."""
+    return distance[both] if np.ndim(distance) else distance
+
+
+def _edges_to_csr(values, mask, node_of_cell, n_nodes, grid, neighbours, edge_function):
     """Symmetric node-to-node conductance matrix from the grid's neighbour pairs (no self-loops)."""
     heads, tails, conductances = [], [], []
-    for here, there, distance in _neighbour_steps(mask.shape, neighbours, cell_size):
+    for here, there, distance in _neighbour_steps(grid, neighbours):
         both = mask[here] & mask[there]
         a = node_of_cell[here][both]
         b = node_of_cell[there][both]
-        c = edge_function(values[here][both], values[there][both], distance)
+        c = edge_function(values[here][both], values[there][both], _pick(distance, both))
         apart = a != b                                  # edges inside a patch vanish when it is merged
         heads.append(a[apart])
         tails.append(b[apart])
@@ -355,10 +371,11 @@ def cell_edges(grid, *, kind="resistance", neighbours=8, edge_rule="mean_resista
     mask, values, edge_function = _surface(grid, kind, neighbours, edge_rule)
     flat = np.arange(mask.size, dtype=np.int64).reshape(mask.shape)
     parts = []
-    for here, there, distance in _neighbour_steps(mask.shape, neighbours, grid.cell_size):
+    for here, there, distance in _neighbour_steps(grid, neighbours):
         both = mask[here] & mask[there]
-        parts.append((flat[here][both], flat[there][both], np.full(int(both.sum()), distance),
-                      edge_function(values[here][both], values[there][both], distance)))
+        d = np.broadcast_to(_pick(distance, both), (int(both.sum()),))
+        parts.append((flat[here][both], flat[there][both], d,
+                      edge_function(values[here][both], values[there][both], d)))
     cell_i, cell_j, d, conductance = (np.concatenate(column) for column in zip(*parts))
     order = np.lexsort((cell_j, cell_i))            # by first cell, then second: row-major
     return CellEdges(cell_i[order], cell_j[order], d[order], conductance[order])

@@ -29,7 +29,7 @@ COG_PROFILE = {
 GEOTIFF_PROFILE = COG_PROFILE
 
 
-def read_grid(path, *, what="raster", allow_geographic=False, integer=False, plain_grid_ok=False):
+def read_grid(path, *, what="raster", integer=False, plain_grid_ok=False):
     """Read band 1 of a raster into a :class:`Grid`.
 
     Cells equal to the nodata value are outside the landscape; so are
@@ -40,9 +40,6 @@ def read_grid(path, *, what="raster", allow_geographic=False, integer=False, pla
     path : str or Path
     what : str
         What the raster is, for error messages ("resistance raster", ...).
-    allow_geographic : bool
-        Accept a geographic CRS (degrees). Off by default: distances in
-        degrees are not metres, and the edge rule needs lengths.
     integer : bool
         Keep an integer raster's values exact (int64) instead of reading them
         through float64, which merges whole numbers above 2^53 (patch labels).
@@ -54,8 +51,13 @@ def read_grid(path, *, what="raster", allow_geographic=False, integer=False, pla
     ------
     InputError
         The file is missing, unreadable or damaged, has more than one band,
-        has no georeferencing (unless ``plain_grid_ok``), or is in a
-        geographic CRS.
+        has no georeferencing (unless ``plain_grid_ok``).
+
+    Notes
+    -----
+    A raster in a geographic CRS (longitude/latitude) is read as it is; the
+    graph then measures each row's cell lengths in metres on the ellipsoid
+    (:meth:`Grid.cell_lengths`).
     """
     import warnings
 
@@ -88,9 +90,6 @@ def read_grid(path, *, what="raster", allow_geographic=False, integer=False, pla
             reason = "the file is damaged or truncated"
         raise InputError(f"cannot read the {what} '{path}': {reason}. The file may be damaged or incomplete; "
                          "export it again.") from None
-    if crs is not None and crs.is_geographic and not allow_geographic:
-        raise InputError(f"{path}: the {what} is in a geographic CRS ({crs.to_string()}) whose units "
-                         "are degrees, not lengths. Reproject it to a projected CRS in metres.")
     if integer and np.issubdtype(raw.dtype, np.integer):
         if raw.dtype == np.uint64 and raw.size and raw.max() > np.iinfo(np.int64).max:
             raise InputError(f"{path}: the {what} holds labels above {np.iinfo(np.int64).max}; landflow keeps "
@@ -136,7 +135,7 @@ def read_aligned(path, grid, *, what="raster", integer=False, align=None, record
         The raster is on another grid and ``align`` is None, or it has no CRS
         to warp from.
     """
-    other = read_grid(path, what=what, allow_geographic=True, integer=integer, plain_grid_ok=True)
+    other = read_grid(path, what=what, integer=integer, plain_grid_ok=True)
     diff = grid.same_grid(other)
     if not diff:
         return other

@@ -494,6 +494,8 @@ def _manifest(ctx, seconds, run_id=None):
         "sweep": dict(ctx.study.variation) or None,
         "landscape": {"rows": graph.shape[0], "cols": graph.shape[1],
                       "cell_size": list(ctx.grid.cell_size),
+                      "cell_size_metres": [round(v, 6) for v in ctx.grid.cell_size_metres()],
+                      "geographic": ctx.grid.is_geographic,
                       "crs": ctx.grid.crs.to_string() if ctx.grid.crs else None,
                       "cells": graph.n_cells, "nodes": graph.n_nodes, "edges": graph.n_edges,
                       "patches": [int(p) for p in graph.patch_ids], "pieces": graph.n_pieces,
