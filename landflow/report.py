@@ -71,8 +71,13 @@ def write_report(path, manifest, caution):
         f"landflow {manifest['landflow_version']}; study file: {manifest['study_file'] or '(from Python)'}", "",
         "## Caution", "", caution, "",
         "## Landscape", "",
-        f"- {land['rows']} x {land['cols']} cells of {land['cell_size'][0]:g} x {land['cell_size'][1]:g} map units, "
-        f"CRS {land['crs'] or 'none'}",
+        f"- {land['rows']} x {land['cols']} cells of {land['cell_size'][0]:g} x {land['cell_size'][1]:g} map units"
+        + (f" (about {land['cell_size_metres'][0]:.4g} x {land['cell_size_metres'][1]:.4g} m mid-grid)"
+           if land.get("geographic") else "") + f", CRS {land['crs'] or 'none'}",
+        f"- values read per {manifest['settings']['landscape'].get('values_per', 'length')}: effective resistance "
+        + ("scales with the cell size (docs/method.md, 'Units and resolution')"
+           if manifest['settings']['landscape'].get('values_per', 'length') == 'length'
+           else "does not depend on the cell size (resistance per square of a sheet)"),
         f"- {land['cells']:,} cells in the landscape, {len(land['patches'])} patches, {land['pieces']} connected piece(s)",
     ]
     for solver in manifest["solvers"]:

@@ -8,7 +8,7 @@ from pathlib import Path
 
 from ..errors import ConfigError
 from ..analyses.suitability import TRANSFORMS
-from ..graph import EDGE_RULES, NEIGHBOURS
+from ..graph import EDGE_RULES, NEIGHBOURS, VALUES_PER
 from ..io.rasters import ALIGN_METHODS
 from ..solve import METHODS
 from .schema import Key, Section, close_match, validate_section
@@ -110,6 +110,11 @@ SECTIONS = {
                                           "no CRS, such as a PNG): its cells are then 1 x 1 map units"),
         "edge_rule": Key(str, "mean_resistance", "how two cells' values make an edge's conductance",
                          choices=EDGE_RULES),
+        "values_per": Key(str, "length", "how the values are read: 'length' = resistance (conductance) per unit "
+                                         "length of travel, so effective resistance grows with the cell size; "
+                                         "'square' = resistance per square of a continuous sheet, independent "
+                                         "of the cell size (docs/method.md, 'Units and resolution')",
+                          choices=VALUES_PER),
     }, "The surface the walk moves over: a resistance, conductance or habitat suitability raster.",
         exactly_one=(("resistance", "conductance", "suitability"),), check=_suitability_rules),
     "patches": Section({

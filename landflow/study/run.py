@@ -94,7 +94,8 @@ class RunContext:
                     align=self._align.get(str(spec["weight_raster"])), record=self.alignments)
         with self.timed("build graph"):
             self.graph = build_graph(self.grid, self.patches.labels, kind=kind,
-                                     neighbours=land["neighbours"], edge_rule=land["edge_rule"])
+                                     neighbours=land["neighbours"], edge_rule=land["edge_rule"],
+                                     values_per=land["values_per"])
         self._check_patches()
 
     def _input(self, path):
@@ -159,7 +160,8 @@ class RunContext:
         from ..graph import cell_edges
         land = self.study.settings["landscape"]
         with self.timed("least-cost search"):
-            edges = cell_edges(self.grid, kind=self.kind, neighbours=land["neighbours"], edge_rule=land["edge_rule"])
+            edges = cell_edges(self.grid, kind=self.kind, neighbours=land["neighbours"], edge_rule=land["edge_rule"],
+                                     values_per=land["values_per"])
             return least_cost(self.graph, edges)
 
     @cached_property

@@ -91,3 +91,11 @@ def test_every_raster_of_a_run_is_a_cog_with_its_description_and_units(run):
             assert src.tags(ns="IMAGE_STRUCTURE")["LAYOUT"] == "COG", item["file"]
             assert src.descriptions == (item["description"],) and src.units == (item["units"],)
             assert src.nodata == -9999.0
+
+
+def test_cell_size_is_printed_beside_resistances(run):
+    table = pd.read_csv(run / "effective_resistance.csv")
+    assert table.cell_width.tolist() == [10.0] and table.cell_height.tolist() == [10.0]
+    assert table.values_per.tolist() == ["length"]
+    report = (run / "report.md").read_text(encoding="utf-8")
+    assert "on cells of 10 x 10 map units, values read per length (these numbers scale with the cell size" in report
