@@ -95,6 +95,7 @@ class CellGraph:
     shape : tuple
         Grid shape.
     neighbours, edge_rule, values_per : the settings the graph was built with.
+    transform, crs : the grid's georeferencing, for :meth:`to_xarray`.
     """
 
     conductance: sp.csr_array
@@ -104,6 +105,8 @@ class CellGraph:
     neighbours: int = 8
     edge_rule: str = "mean_resistance"
     values_per: str = "length"
+    transform: object = None
+    crs: object = None
 
     @property
     def n_nodes(self):
@@ -162,6 +165,18 @@ class CellGraph:
         inside = self.node_of_cell >= 0
         out[inside] = node_values[self.node_of_cell[inside]]
         return out
+
+    def to_xarray(self, values, *, name=None, units=None):
+        """Per-node values (or a full cell array) as a georeferenced xarray.DataArray (y, x).
+
+        Cell-centre coordinates from the grid's transform, the CRS written with
+        rioxarray, ``units`` in the attributes; NaN outside the landscape.
+        Needs the ``xarray`` extra.
+        """
+        from .io.xarray import to_xarray        # the I/O layer writes the georeferencing (rioxarray)
+        values = np.asarray(values)
+        cells = values if values.shape == self.shape else self.to_raster(values, dtype=np.float64)
+        return to_xarray(cells, self.transform, self.crs, name=name, units=units)
 
 
 def build_graph(grid, patches=None, *, kind="resistance", neighbours=8, edge_rule="mean_resistance",
@@ -235,7 +250,8 @@ def build_graph(grid, patches=None, *, kind="resistance", neighbours=8, edge_rul
     node_of_cell.reshape(-1)[cells] = node
     del cells, node
     merged = _edges_to_csr(values, mask, node_of_cell, n_nodes, grid, neighbours, edge_function, values_per)
-    return CellGraph(merged, node_of_cell, patch_ids, grid.shape, neighbours, edge_rule, values_per)
+    return CellGraph(merged, node_of_cell, patch_ids, grid.shape, neighbours, edge_rule, values_per,
+                     grid.transform, grid.crs)
 
 
 def _surface(grid, kind, neighbours, edge_rule):

@@ -90,6 +90,9 @@ class Grid:
         >>> g.cell_size
         (10.0, 10.0)
         """
+        if hasattr(values, "dims") and hasattr(values, "coords"):     # an xarray object: keep its georeferencing
+            raise InputError("Grid.from_array got an xarray object, whose CRS and transform it would drop; use "
+                             "Grid.from_xarray(data_array) instead.")
         values = np.asarray(values, dtype=np.float64)
         width, height = (cell_size, cell_size) if np.isscalar(cell_size) else cell_size
         if not (np.isfinite(width) and np.isfinite(height) and width > 0 and height > 0):
@@ -98,6 +101,22 @@ class Grid:
             mask = np.isfinite(values)
         transform = Affine(float(width), 0.0, origin[0], 0.0, -float(height), origin[1])
         return cls(values, mask, transform, crs)
+
+    @classmethod
+    def from_xarray(cls, data, *, mask=None):
+        """A grid from a 2-D DataArray with a CRS and a transform (rioxarray); see
+        :func:`landflow.io.xarray.grid_from_xarray`. Needs the ``xarray`` extra.
+
+        Examples
+        --------
+        >>> import numpy as np, xarray as xr, rioxarray
+        >>> da = xr.DataArray(np.ones((2, 3)), dims=("y", "x"),
+        ...                   coords={"y": [15.0, 5.0], "x": [5.0, 15.0, 25.0]}).rio.write_crs("EPSG:32632")
+        >>> Grid.from_xarray(da).cell_size
+        (10.0, 10.0)
+        """
+        from .io.xarray import grid_from_xarray    # the I/O layer reads the georeferencing (rioxarray)
+        return grid_from_xarray(data, mask=mask)
 
     @property
     def shape(self):
