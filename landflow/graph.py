@@ -69,7 +69,22 @@ def landscape_mask(grid, kind="resistance"):
         what = "every cell is nodata" if not mask.any() else f"every {kind} value is zero"
         raise InputError(f"{grid.source}: no cell is part of the landscape: {what}. "
                          f"Check the nodata value and the {kind} values.")
+    inside = values[nodes]
+    low, high = inside.min(), inside.max()
+    if high > MAX_VALUE_SPAN * low:
+        rows, cols = np.nonzero(nodes & (values == (high if high > 1.0 / low else low)))
+        barrier = "nodata" if kind == "resistance" else "0 (a barrier)"
+        raise InputError(f"{grid.source}: {kind} values span {low:.3g} to {high:.3g}, a ratio above "
+                         f"{MAX_VALUE_SPAN:.0e} that double-precision solves cannot resolve; the most extreme is "
+                         f"at {grid.where(rows[0], cols[0])}. Mark impassable cells as {barrier} instead of "
+                         f"giving them an extreme {kind}, or rescale the values.")
     return nodes
+
+
+#: Largest ratio of the largest to the smallest resistance (or conductance) in one landscape. Beyond it the
+#: grounded Laplacian's condition number exceeds what double precision (about 1e-16) solves to 1e-6 or better
+#: (common practice: keep the condition number below 1e16 times the accuracy wanted).
+MAX_VALUE_SPAN = 1e10
 
 
 def _reject(grid, bad, what):

@@ -10,12 +10,15 @@ Two backends behind one interface:
     :func:`landflow.graph.nested_dissection_order`) it factorises the
     permuted matrix in that order; otherwise it uses SuperLU's minimum degree
     ordering of A^T + A.
+  - ``cholmod``: CHOLMOD's supernodal Cholesky factorisation (SuiteSparse)
+    through the optional :mod:`cvxopt` package (``pip install landflow[fast]``;
+    cvxopt is GPL-3 licensed, which is why it is optional).
   - ``pardiso``: Intel MKL Pardiso through the optional :mod:`pypardiso`
     package (``pip install landflow[fast]``, x86-64 only), a multithreaded
     Cholesky-type factorisation with its own nested-dissection ordering.
 
-  Method ``direct`` uses Pardiso when :mod:`pypardiso` can be imported and
-  SuperLU otherwise; methods ``superlu`` and ``pardiso`` ask for one engine.
+  Method ``direct`` uses the first engine of :data:`DIRECT_ENGINES` that is
+  installed; methods ``superlu``, ``cholmod`` and ``pardiso`` ask for one.
 * ``multigrid``: smoothed-aggregation algebraic multigrid (:mod:`pyamg`) as a
   preconditioner for conjugate gradients. Memory grows linearly with the grid;
   best for the largest grids and few right-hand sides.
@@ -45,7 +48,11 @@ from .errors import SolverError
 __all__ = ["factorize", "Solver", "METHODS", "DIRECT_MAX_UNKNOWNS", "DIRECT_ALWAYS_UNKNOWNS", "DIRECT_MIN_RHS",
            "choose_method", "direct_engine"]
 
-METHODS = ("auto", "direct", "multigrid", "superlu", "pardiso")
+METHODS = ("auto", "direct", "multigrid", "superlu", "pardiso", "cholmod")
+
+#: The direct engines, fastest first on the 1000 x 1000, 20-patch benchmark (docs/performance.md);
+#: ``direct`` takes the first one installed.
+DIRECT_ENGINES = ("cholmod", "pardiso", "superlu")
 
 #: Above this many unknowns ``auto`` uses multigrid whatever the number of
 #: right-hand sides: the direct factor's memory grows as n log n (8.2 GB for SuperLU,
@@ -94,12 +101,21 @@ def choose_method(n_unknowns, n_rhs=1):
 
 
 def direct_engine():
-    """The engine method ``direct`` uses here: ``"pardiso"`` when :mod:`pypardiso` is installed, else ``"superlu"``.
+    """The engine method ``direct`` uses here: the first of :data:`DIRECT_ENGINES` that is installed.
 
-    Only looks for the package: importing it loads MKL, which is left out of
-    processes that do not use it.
+    ``cholmod`` needs :mod:`cvxopt` and ``pardiso`` needs :mod:`pypardiso` (both in the optional
+    ``fast`` extra); ``superlu`` comes with scipy. Only looks for the packages: importing them loads
+    large libraries, which are left out of processes that do not use them.
     """
-    return "pardiso" if importlib.util.find_spec("pypardiso") is not None else "superlu"
+    for engine, package in (("cholmod", "cvxopt"), ("pardiso", "pypardiso")):
+        if engine in DIRECT_ENGINES and importlib.util.find_spec(package) is not None:
+            return engine
+    return "superlu"
+
+
+def _installed(engine):
+    package = {"cholmod": "cvxopt", "pardiso": "pypardiso"}.get(engine)
+    return package is None or importlib.util.find_spec(package) is not None
 
 
 class Solver:
@@ -128,6 +144,7 @@ class Solver:
         self.n_solved = 0
         self.solve_seconds = 0.0
         self.ordering = None
+        self.factor_nonzeros = None
         start = time.perf_counter()
         if self.engine == "superlu":
             if ordering is not None:
@@ -145,6 +162,7 @@ class Solver:
                                     diag_pivot_thresh=0.0, options={"SymmetricMode": True})
             except RuntimeError as exc:  # singular: an ungrounded component
                 raise SolverError(f"direct factorisation (superlu) failed: {exc}. {_SINGULAR}") from exc
+            self.factor_nonzeros = int(self._lu.nnz)      # L and U together
             del permuted
         elif self.engine == "pardiso":
             _point_pypardiso_at_mkl()
@@ -159,6 +177,8 @@ class Solver:
                 self._pardiso.factorize(self._upper)
             except Exception as exc:  # pypardiso raises its own error class on a failed phase
                 raise SolverError(f"direct factorisation (pardiso) failed: {exc}. {_SINGULAR}") from exc
+        elif self.engine == "cholmod":
+            self._factor = _cholmod_factor(matrix)
         else:
             self._ml = _multigrid_hierarchy(matrix.tocsr())
         self.setup_seconds = time.perf_counter() - start
@@ -183,6 +203,12 @@ class Solver:
             limit = max(DIRECT_RESIDUAL_LIMIT, self.tolerance)
         elif self.engine == "pardiso":
             x = np.asarray(self._pardiso.solve(self._upper, b)).reshape(b.shape)
+            limit = max(DIRECT_RESIDUAL_LIMIT, self.tolerance)
+        elif self.engine == "cholmod":
+            from cvxopt import cholmod, matrix as dense
+            x = dense(np.asfortranarray(b.reshape(b.shape[0], -1)))
+            cholmod.solve(self._factor, x)
+            x = np.asarray(x).reshape(b.shape)
             limit = max(DIRECT_RESIDUAL_LIMIT, self.tolerance)
         else:
             x = np.column_stack([self._cg(col) for col in b.reshape(b.shape[0], -1).T]).reshape(b.shape)
@@ -210,7 +236,7 @@ class Solver:
         """Free the factor or multigrid hierarchy; :meth:`record` still works, :meth:`solve` no longer does."""
         if getattr(self, "_pardiso", None) is not None:
             self._pardiso.free_memory(everything=True)
-        self._lu = self._ml = self._pardiso = self._upper = None
+        self._lu = self._ml = self._pardiso = self._upper = self._factor = None
         self._released = True
 
     def record(self):
@@ -220,7 +246,33 @@ class Solver:
                "setup_seconds": round(self.setup_seconds, 3), "solve_seconds": round(self.solve_seconds, 3)}
         if self.iterations:
             out["cg_iterations_max"] = int(max(self.iterations))
+        if self.factor_nonzeros is not None:
+            out["factor_nonzeros"] = self.factor_nonzeros
         return out
+
+
+def _cholmod_factor(matrix):
+    """CHOLMOD's supernodal Cholesky factor of an SPD matrix, through cvxopt (the lower triangle is read).
+
+    CHOLMOD orders the unknowns itself (AMD or METIS-style nested dissection, chosen by its
+    symbolic analysis). Chen, Davis, Hager & Rajamanickam 2008, "Algorithm 887: CHOLMOD,
+    supernodal sparse Cholesky factorization and update/downdate", ACM TOMS 35:22,
+    doi:10.1145/1391989.1391995.
+    """
+    from cvxopt import cholmod, matrix as dense, spmatrix
+
+    lower = sp.tril(matrix, format="csc")
+    lower.sort_indices()
+    columns = np.repeat(np.arange(lower.shape[1], dtype=np.int64), np.diff(lower.indptr))
+    system = spmatrix(dense(lower.data.astype(np.float64)), dense(lower.indices.astype(np.int64)),
+                      dense(columns), lower.shape)
+    del lower, columns
+    try:
+        factor = cholmod.symbolic(system)
+        cholmod.numeric(system, factor)
+    except ArithmeticError as exc:      # not positive definite: a pivot <= 0
+        raise SolverError(f"direct factorisation (cholmod) failed: {exc}. {_SINGULAR}") from None
+    return factor
 
 
 _SEED_LOCK = threading.Lock()
@@ -252,9 +304,9 @@ def factorize(matrix, *, method="auto", tolerance=1e-8, n_rhs=1, ordering=None):
     ----------
     matrix : sparse array, shape (n, n)
         A grounded Laplacian (or another SPD M-matrix).
-    method : {"auto", "direct", "multigrid", "superlu", "pardiso"}
+    method : {"auto", "direct", "multigrid", "superlu", "pardiso", "cholmod"}
         ``auto`` follows :func:`choose_method`; ``direct`` uses
-        :func:`direct_engine`; ``superlu`` and ``pardiso`` name a direct engine.
+        :func:`direct_engine`; ``superlu``, ``cholmod`` and ``pardiso`` name a direct engine.
     tolerance : float
         Relative residual target of the multigrid solves, which fail past
         ``10 * tolerance`` (CG stops on a preconditioned norm); direct solves
@@ -272,7 +324,7 @@ def factorize(matrix, *, method="auto", tolerance=1e-8, n_rhs=1, ordering=None):
     Raises
     ------
     SolverError
-        Unknown method; ``pardiso`` asked for but :mod:`pypardiso` missing;
+        Unknown method; an engine asked for whose package is missing;
         the factorisation failed (a singular, ungrounded system).
 
     Notes
@@ -291,11 +343,12 @@ def factorize(matrix, *, method="auto", tolerance=1e-8, n_rhs=1, ordering=None):
     engine = None
     if method == "direct":
         engine = direct_engine()
-    elif method in ("superlu", "pardiso"):
+    elif method in ("superlu", "pardiso", "cholmod"):
         engine, method = method, "direct"
-        if engine == "pardiso" and direct_engine() != "pardiso":
-            raise SolverError("solver method 'pardiso' needs the optional package pypardiso "
-                              "(pip install 'landflow[fast]', x86-64 only); use 'direct' or 'superlu' instead.")
+        if not _installed(engine):
+            package = {"cholmod": "cvxopt", "pardiso": "pypardiso (x86-64 only)"}[engine]
+            raise SolverError(f"solver method '{engine}' needs the optional package {package} "
+                              "(pip install 'landflow[fast]'); use 'direct' or 'superlu' instead.")
     matrix = sp.csr_array(matrix)
     _check_grounded(matrix)
     return Solver(matrix, method, tolerance, engine=engine, ordering=ordering)

@@ -203,6 +203,26 @@ def test_points_with_a_bad_number(tmp_path, tif, centre):
         read_patch_points(path, grid)
 
 
+def test_points_with_a_blank_value(tmp_path, tif, centre):
+    grid = _resistance(tif)
+    x, y = centre(2, 2)
+    path = tmp_path / "points.csv"
+    path.write_text(f"x,y,id\n{centre(1, 1)[0]},{centre(1, 1)[1]},1\n{x},,2\n")
+    with pytest.raises(lf.InputError, match=r"points\.csv, line 3: column 'y' holds nothing \(a blank value\), "
+                                            r"not a number\. Fill it in or remove the line"):
+        read_patch_points(path, grid)
+
+
+def test_points_with_spaces_after_the_commas(tmp_path, tif, centre):
+    grid = _resistance(tif)
+    (x1, y1), (x2, y2) = centre(1, 1), centre(2, 2)
+    path = tmp_path / "points.csv"
+    path.write_text(f"x, y, id, size\n{x1}, {y1}, 1, 2.5\n{x2}, {y2}, 2, 1\n")
+    patches = read_patch_points(path, grid, weight_column="size")
+    assert patches.labels[1, 1] == 1 and patches.labels[2, 2] == 2
+    assert patches.weight == {1: 2.5, 2: 1.0}
+
+
 # --- missing files ------------------------------------------------------------------------------
 
 def test_missing_raster(tmp_path):
@@ -458,3 +478,21 @@ def test_a_truncated_geotiff_names_the_file_and_the_fix(study, tmp_path):
     (tmp_path / "cut.tif").write_bytes(data[: len(data) // 2])
     with pytest.raises(lf.InputError, match=r"cannot read the resistance raster '.*cut\.tif': .*export it again"):
         lf.check_study(study(landscape='resistance = "cut.tif"'))
+
+
+def test_resistances_near_the_float32_limit_are_refused_before_the_solver(study, tif):
+    path = study()
+    resistance = read_grid(path.parent / "resistance.tif").values.astype("float32")
+    resistance[3, 4] = 3e38
+    tif("resistance.tif", resistance, nodata=NODATA)
+    with pytest.raises(lf.InputError, match=r"resistance values span .* to 3e\+38, a ratio above 1e\+10 .* at "
+                                            r"row 3, col 4 .*Mark impassable cells as nodata"):
+        lf.check_study(path)
+
+
+def test_all_zero_patch_weights_warn_naming_the_key(study, tif):
+    tif("weight.tif", np.zeros((6, 8), dtype="float32"))
+    summary = lf.check_study(study(patches='raster = "patches.tif"\nweight_raster = "weight.tif"'))
+    assert not summary["warnings"]
+    ctx_warnings = lf.run_study(study(patches='raster = "patches.tif"\nweight_raster = "weight.tif"'))["warnings"]
+    assert any("every patch weight from 'patches.weight_raster' is 0" in w for w in ctx_warnings)

@@ -12,8 +12,9 @@ from landflow.analyses import current as current_module
 from landflow.errors import SolverError
 from landflow.graph import nested_dissection_order
 
-HAVE_PARDISO = solve.direct_engine() == "pardiso"
-ENGINES = ["superlu", "multigrid"] + (["pardiso"] if HAVE_PARDISO else [])
+HAVE_PARDISO = solve._installed("pardiso")
+HAVE_CHOLMOD = solve._installed("cholmod")
+ENGINES = ["superlu", "multigrid"] + (["pardiso"] if HAVE_PARDISO else []) + (["cholmod"] if HAVE_CHOLMOD else [])
 
 
 def lognormal_graph(rows, cols, patches, seed=0):
@@ -76,6 +77,16 @@ class TestBackendsAgree:
         np.testing.assert_allclose(lf.effective_resistance(b), lf.effective_resistance(a), rtol=1e-8)
         assert b.solvers[0].record()["engine"] == "pardiso"
 
+    @pytest.mark.skipif(not HAVE_CHOLMOD, reason="cvxopt (CHOLMOD, the 'fast' extra) is not installed")
+    @pytest.mark.parametrize("seed", [5, 6])
+    def test_cholmod_equals_superlu_to_1e10(self, seed):
+        graph = lognormal_graph(60, 70, [(5, 5), (50, 60), (30, 10), (8, 66)], seed=seed)
+        a = lf.patch_voltages(graph, method="superlu")
+        b = lf.patch_voltages(graph, method="cholmod")
+        np.testing.assert_allclose(lf.effective_resistance(b), lf.effective_resistance(a), rtol=1e-10)
+        np.testing.assert_allclose(lf.current_density(b), lf.current_density(a), rtol=1e-10, atol=1e-12)
+        assert b.solvers[0].record()["engine"] == "cholmod"
+
     def test_superlu_agrees_with_scipy_spsolve(self):
         # scipy's general sparse solver on the grounded Laplacian, no landflow ordering involved.
         import scipy.sparse.linalg as sla
@@ -136,11 +147,13 @@ class TestErrors:
         with pytest.raises(SolverError, match="was released after its solves"):
             solver.solve(np.ones(solver.matrix.shape[0]))
 
-    def test_pardiso_missing(self, monkeypatch):
-        monkeypatch.setattr(solve, "direct_engine", lambda: "superlu")     # as on a machine without it
+    @pytest.mark.parametrize("engine, package", [("pardiso", "pypardiso"), ("cholmod", "cvxopt")])
+    def test_engine_missing(self, monkeypatch, engine, package):
+        monkeypatch.setattr(solve, "_installed", lambda e: e == "superlu")     # as on a plain install
         graph = lognormal_graph(5, 5, [(0, 0), (4, 4)])
-        with pytest.raises(SolverError, match=r"needs the optional package pypardiso \(pip install 'landflow\[fast\]'"):
-            solve.factorize(graph.laplacian()[1:, 1:], method="pardiso")
+        with pytest.raises(SolverError, match=rf"'{engine}' needs the optional package {package}.*pip install "
+                                              r"'landflow\[fast\]'"):
+            solve.factorize(graph.laplacian()[1:, 1:], method=engine)
 
 
 class TestCumulativeCurrentFastSum:

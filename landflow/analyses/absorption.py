@@ -252,12 +252,21 @@ class AbsorbingWalk:
         grounded = grounded_piece[comp]
         self.transient = np.flatnonzero(grounded & ~self.is_absorbing)
         self.stranded = ~grounded & ~self.is_absorbing
-        self.solver = None
         self.related = {}
-        if self.transient.size:
-            t = self.transient
-            system = graph.laplacian(extra_diagonal=self.killing)[t][:, t]
-            self.solver = factorize(system, method=method, tolerance=tolerance, n_rhs=self.absorbing.size + 2)
+
+    @cached_property
+    def solver(self):
+        """The factorised system on the transient nodes (None without any), made on first use only."""
+        if not self.transient.size:
+            return None
+        t = self.transient
+        system = self.graph.laplacian(extra_diagonal=self.killing)[t][:, t]
+        return factorize(system, method=self.method, tolerance=self.tolerance, n_rhs=self.absorbing.size + 2)
+
+    @property
+    def factorised(self):
+        """True once :attr:`solver` has been made (a walk whose system was never needed costs nothing)."""
+        return "solver" in self.__dict__
 
     def __repr__(self):
         return (f"AbsorbingWalk(absorbing patches={self.graph.patch_ids[self.absorbing].tolist()}, "

@@ -124,8 +124,9 @@ def least_cost(graph, edges):
     first = np.ones(order.size, dtype=bool)
     first[1:] = key[order][1:] != key[order][:-1]
     pick = order[first]
-    rows = np.concatenate([lo[pick], hi[pick]])
-    cols = np.concatenate([hi[pick], lo[pick]])
+    index = np.int32 if n < 2**31 else np.int64      # csgraph of scipy < 1.13 takes 32-bit indices only
+    rows = np.concatenate([lo[pick], hi[pick]]).astype(index)
+    cols = np.concatenate([hi[pick], lo[pick]]).astype(index)
     cost_graph = sp.csr_array((np.concatenate([cost[pick], cost[pick]]), (rows, cols)), shape=(n, n))
     step_length = sp.csr_array((np.concatenate([length[pick], length[pick]]), (rows, cols)), shape=(n, n))
     k = graph.n_patches

@@ -253,7 +253,9 @@ def corridor_ranking(voltages, weights=None, *, least_cost=None):
     table["resistance_without_link"] = r_without
     table["connectivity_drop"] = drop
     table["connectivity_drop_share"] = drop / total if total > 0 else 0.0
-    order = np.lexsort((r_ab, -drop))
+    # rank by the drop, then by resistance, then by pair; values equal to 12 digits count as ties, so that
+    # rounding in the last bits (which differs between solvers) does not reorder equal links
+    order = np.lexsort((b_idx, a_idx, _to_12_digits(r_ab), -_to_12_digits(drop)))
     table = table.iloc[order].reset_index(drop=True)
     table.insert(0, "rank", np.arange(1, n_pairs + 1))
     return table
@@ -504,3 +506,13 @@ def scenario_change(before, after, weights_before, weights_after):
     totals = {"connectivity_before": connectivity(r0, weights_before),
               "connectivity_after": connectivity(r1, weights_after)}
     return table, current_change, totals
+
+
+def _to_12_digits(values):
+    """``values`` rounded to 12 significant digits (inf and NaN kept), for ranking with ties."""
+    values = np.asarray(values, dtype=np.float64)
+    out = values.copy()
+    finite = np.isfinite(values) & (values != 0)
+    exponent = np.floor(np.log10(np.abs(values[finite])))
+    out[finite] = np.round(values[finite] / 10.0 ** (exponent - 11)) * 10.0 ** (exponent - 11)
+    return out

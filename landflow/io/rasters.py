@@ -74,7 +74,12 @@ def read_grid(path, *, what="raster", integer=False, plain_grid_ok=False):
                     raise InputError(f"{path}: the {what} has no georeferencing (no transform and no CRS; "
                                      f"a {src.driver} file). Give a georeferenced raster such as a GeoTIFF, or "
                                      "set 'landscape.plain_grid_ok = true' to read it as a grid of 1 x 1 cells.")
-                raw = src.read(1, masked=False)
+                try:
+                    raw = src.read(1, masked=False)
+                except RasterioIOError as exc:       # opened, but its data cannot be decoded
+                    raise InputError(f"cannot read the {what} '{path}': the file is damaged or truncated "
+                                     f"(GDAL: {str(exc).rstrip('. ')}). The file may be incomplete; export it "
+                                     "again.") from None
     except RasterioIOError as exc:
         reason = str(exc).rstrip(". ")                  # GDAL's messages often end with a full stop
         if "previous exception" in reason.lower() or "read failed" in reason.lower():

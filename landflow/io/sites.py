@@ -88,22 +88,27 @@ def read_patch_points(path, grid, *, weight_column=None, crs=None):
     finite number >= 0, the same on every point of one id).
     """
     try:
-        table = pd.read_csv(path)
+        table = pd.read_csv(path, skipinitialspace=True, dtype=str, keep_default_na=False)
     except FileNotFoundError:
         raise InputError(f"patch points file '{path}' does not exist. Check the path "
                          "(relative paths in a study are relative to the study file).") from None
     except (pd.errors.ParserError, pd.errors.EmptyDataError, UnicodeDecodeError) as exc:
         raise InputError(f"{path}: cannot read it as CSV ({exc}).") from None
+    table.columns = [str(c).strip() for c in table.columns]     # "x, y, id" as well as "x,y,id"
     needed = ["x", "y", "id"] + ([weight_column] if weight_column else [])
     missing = [c for c in needed if c not in table.columns]
     if missing:
         raise InputError(f"{path}: missing column(s) {', '.join(missing)}; found {', '.join(map(str, table.columns))}. "
                          "The points table needs x, y (map coordinates in the raster's CRS) and id (a whole number > 0).")
     for col in needed:
-        values = pd.to_numeric(table[col], errors="coerce")
+        text = table[col].str.strip()
+        values = pd.to_numeric(text, errors="coerce")
         if values.isna().any():
             line = int(values.isna().to_numpy().argmax()) + 2
-            raise InputError(f"{path}, line {line}: column {col!r} holds {table[col].iloc[line - 2]!r}, not a number.")
+            held = text.iloc[line - 2]
+            shown = "nothing (a blank value)" if held == "" else repr(held)
+            raise InputError(f"{path}, line {line}: column {col!r} holds {shown}, not a number. Fill it in or "
+                             "remove the line.")
         table[col] = values
     ids = table["id"].to_numpy()
     bad = (ids != np.round(ids)) | (ids <= 0)

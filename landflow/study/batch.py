@@ -332,6 +332,31 @@ def _run_on_processes(todo, workers, outcomes, progress):
             raise
 
 
+def connect(scheduler):
+    """A dask.distributed Client for ``scheduler``, with TLS credentials from Dask's own configuration.
+
+    For ``tls://`` addresses the CA file, client certificate and key come from
+    the keys ``distributed.comm.tls.ca-file``, ``distributed.comm.tls.client.cert``
+    and ``distributed.comm.tls.client.key`` (a Dask config file, or the
+    environment variables ``DASK_DISTRIBUTED__COMM__TLS__CA_FILE``, ...).
+    """
+    from distributed import Client
+    from distributed.security import Security
+
+    security = Security()               # reads distributed.comm.tls.* from Dask's configuration
+    if str(scheduler).startswith("tls://") and not (security.tls_ca_file and security.tls_client_cert):
+        raise ConfigError(f"the scheduler address '{scheduler}' uses TLS, but Dask's configuration names no "
+                          "certificates. Set distributed.comm.tls.ca-file, distributed.comm.tls.client.cert and "
+                          "distributed.comm.tls.client.key (in a Dask config file or as "
+                          "DASK_DISTRIBUTED__COMM__TLS__CA_FILE, ...__CLIENT__CERT and ...__CLIENT__KEY).")
+    try:
+        return Client(scheduler, timeout=CONNECT_TIMEOUT, security=security)
+    except (OSError, ValueError, TypeError) as exc:
+        raise ConfigError(f"cannot reach the Dask scheduler at '{scheduler}': {exc}. Check the address "
+                          "(for example tls://host:8786), that the scheduler is running, and for TLS that "
+                          "the certificates in Dask's configuration are the cluster's.") from None
+
+
 def _run_on_dask(todo, client, scheduler, outcomes, progress):
     try:
         from distributed import Client
@@ -340,11 +365,7 @@ def _run_on_dask(todo, client, scheduler, outcomes, progress):
                           "pip install 'landflow[dask]' (or pip install 'dask[distributed]').") from None
     own = client is None
     if own:
-        try:
-            client = Client(scheduler, timeout=CONNECT_TIMEOUT)
-        except (OSError, ValueError) as exc:
-            raise ConfigError(f"cannot reach the Dask scheduler at '{scheduler}': {exc}. Check the address "
-                              "(for example tcp://host:8786) and that the scheduler is running.") from None
+        client = connect(scheduler)
     try:
         slots = max(1, sum(client.nthreads().values()))
 

@@ -154,7 +154,10 @@ SECTIONS = {
        "raster) or 'mean' (area-weighted average: rates, probabilities; not counts). The manifest records each "
        "warp. The landscape raster itself is never resampled."),
     "solver": Section({
-        "method": Key(str, "auto", "linear solver: auto, direct (sparse LU) or multigrid (AMG + CG)", choices=METHODS),
+        "method": Key(str, "auto", "linear solver: auto (direct or multigrid by size), direct (the fastest "
+                                   "direct engine installed), multigrid (AMG + CG), or one direct engine: "
+                                   "superlu, cholmod or pardiso (the last two from the 'fast' extra)",
+                      choices=METHODS),
         "tolerance": Key(float, 1e-8, "relative residual target of iterative solves", check=_tolerance,
                          unit="relative residual"),
     }, "How the linear systems are solved."),

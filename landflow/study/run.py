@@ -35,6 +35,9 @@ CAUTION = ("These are model outputs. They depend on the resistance values and on
            "random-walk and circuit models. Use them for decision support alongside field evidence, local "
            "regulation and licensed professional practice, not as a substitute for them.")
 
+VOLTAGES_PURPOSE = "patch voltages (effective resistance, current)"
+WALK_PURPOSE = "absorbing walk (every patch absorbing)"
+
 _DEPENDENCIES = ("numpy", "scipy", "pandas", "rasterio", "scikit-image", "pyamg", "matplotlib", "geopandas",
                  "pyogrio", "pyproj", "shapely")
 
@@ -59,6 +62,8 @@ class RunContext:
         self.alignments = []
         self.summary = {}
         self.solvers = []
+        self.step = None
+        self.shared_users = {}
         self._load()
 
     # -- inputs ---------------------------------------------------------------
@@ -137,16 +142,29 @@ class RunContext:
             self.warn("the landscape falls apart into pieces that no walk can cross; patches in different "
                       f"pieces have infinite effective resistance. Groups: {' | '.join(groups)}")
 
-    @property
+    @cached_property
     def patch_weight(self):
-        """Per-patch weight in graph order, or None."""
+        """Per-patch weight in graph order, or None; warns once when every weight is 0."""
         s = self.patches.weight
-        return None if s is None else np.array([s[int(p)] for p in self.graph.patch_ids])
+        if s is None:
+            return None
+        weight = np.array([s[int(p)] for p in self.graph.patch_ids])
+        if not np.any(weight > 0):
+            spec = self.study.settings["patches"]
+            key = "patches.weight_raster" if spec.get("weight_raster") is not None else "patches.weight_column"
+            self.warn(f"every patch weight from '{key}' is 0, so every pair weighs 0 and weighted maps and sums "
+                      "are all 0. Check the weights, or set 'use_patch_weights = false' in the analyses.")
+        return weight
 
     # -- shared solves -------------------------------------------------------
-    @cached_property
+    @property
     def voltages(self):
         """Patch voltages (k - 1 solves), computed once and shared by every step."""
+        self._note_use(VOLTAGES_PURPOSE)
+        return self._voltages
+
+    @cached_property
+    def _voltages(self):
         from ..analyses.resistance import patch_voltages
         solver = self.study.settings["solver"]
         with self.timed("solve"):
@@ -181,24 +199,46 @@ class RunContext:
             return mortality_from_resistance(np.where(inside, resistance, 0.0), rate)
         return None
 
-    @cached_property
+    @property
     def absorbing_walk(self):
-        """The walk with every patch absorbing and the study's mortality, factorised once and shared."""
-        from ..analyses.absorption import absorbing_walk, absorption_probability
+        """The walk with every patch absorbing and the study's mortality, shared by every step.
+
+        Its system is factorised on first use only: a step that needs only other
+        absorbing sets (hitting maps of pairs) never pays for it.
+        """
+        self._note_use(WALK_PURPOSE)
+        return self._absorbing_walk
+
+    @cached_property
+    def _absorbing_walk(self):
+        from ..analyses.absorption import absorbing_walk
         solver = self.study.settings["solver"]
         spec = self.study.settings.get("mortality") or {}
-        mortality = self.mortality
-        with self.timed("solve absorbing walk"), self.forward_warnings():
-            walk = absorbing_walk(self.graph, mortality, method=solver["method"], tolerance=solver["tolerance"],
+        with self.forward_warnings():
+            return absorbing_walk(self.graph, self.mortality, method=solver["method"], tolerance=solver["tolerance"],
                                   source=str(spec.get("raster") or "mortality"), where=self.grid.where)
-            absorption_probability(walk)  # solve the patch and death columns now, inside the timer
-        self.add_solvers("absorbing walk (every patch absorbing)", [walk.solver])
-        return walk
+
+    def _note_use(self, purpose):
+        users = self.shared_users.setdefault(purpose, [])
+        if self.step is not None and self.step not in users:
+            users.append(self.step)
 
     def add_solvers(self, purpose, solvers):
         """Record solvers a step prepared, with what they were for, for the manifest (each once)."""
         known = {id(s) for _, s in self.solvers}
         self.solvers += [(purpose, s) for s in solvers if s is not None and id(s) not in known]
+        self._note_use(purpose)
+
+    def solver_records(self):
+        """Every factorised system of the run: what it was for, which steps shared it, the engine's record."""
+        found = []
+        if "_voltages" in self.__dict__:
+            found += [(VOLTAGES_PURPOSE, s) for s in self._voltages.solvers]
+        if "_absorbing_walk" in self.__dict__ and self._absorbing_walk.factorised:
+            found.append((WALK_PURPOSE, self._absorbing_walk.solver))
+        found += self.solvers
+        return [{"purpose": purpose, "used_by": self.shared_users.get(purpose, []), **s.record()}
+                for purpose, s in found if s is not None]
 
     @contextmanager
     def forward_warnings(self):
@@ -412,8 +452,10 @@ def run_study(study):
                              per_node=False, units="resistance per map unit",
                              description="resistance made from the suitability raster by the study's transform")
         for name, settings in study.analyses.items():
+            ctx.step = name
             with ctx.timed(name):
                 ANALYSES[name].run(ctx, settings)
+        ctx.step = None
         if study.settings["output"]["map_layers"]:
             from .vector_layers import write_vector_layers
             with ctx.timed("vector layers"):
@@ -479,9 +521,7 @@ def _manifest(ctx, seconds, run_id=None):
         except metadata.PackageNotFoundError:
             pass
     graph = ctx.graph
-    shared = [("patch voltages (effective resistance, current)", s) for s in ctx.voltages.solvers] \
-        if "voltages" in ctx.__dict__ else []
-    solvers = [{"purpose": purpose, **s.record()} for purpose, s in shared + ctx.solvers]
+    solvers = ctx.solver_records()
     base = ctx.study.path.parent if ctx.study.path else Path.cwd()
     outputs = [{**item, "sha256": file_sha256(ctx.folder / item["file"])} for item in ctx.outputs]
     return {

@@ -64,7 +64,7 @@ def study_text(landscape='resistance = "resistance.tif"', folder="results", extr
     """
 
 
-def run_cli(*args, cwd=None, timeout=120):
-    env = {"PYTHONPATH": str(ROOT), "PATH": "/usr/bin:/bin", "HOME": str(cwd or ROOT)}
+def run_cli(*args, cwd=None, timeout=120, env=None):
+    env = {"PYTHONPATH": str(ROOT), "PATH": "/usr/bin:/bin", "HOME": str(cwd or ROOT), **(env or {})}
     return subprocess.run([sys.executable, "-m", "landflow", *map(str, args)], cwd=cwd, env=env,
                           capture_output=True, text=True, timeout=timeout)

@@ -95,7 +95,8 @@ def test_sweep_on_local_processes_writes_the_comparison_table(landscape):
     assert list(table["run"].unique()) == names and len(table) == 4 * 6
     for name in names:
         own = pd.read_csv(landscape / "swept" / name / "effective_resistance.csv")
-        np.testing.assert_array_equal(table.loc[table["run"] == name, "resistance"], own["resistance"])
+        # the same numbers through two CSV files: pandas' default float parser may differ in the last bit
+        np.testing.assert_allclose(table.loc[table["run"] == name, "resistance"], own["resistance"], rtol=1e-15)
         manifest = json.loads((landscape / "swept" / name / "manifest.json").read_text())
         assert manifest["sweep"]["landscape.neighbours"] == int(name[-1])
     # Rayleigh monotonicity (Doyle & Snell 1984, section 1.4, from memory): dropping the diagonal edges
@@ -169,5 +170,36 @@ def test_unreachable_scheduler(landscape, tmp_path, monkeypatch, address, messag
     import landflow.study.batch as batch
     monkeypatch.setattr(batch, "CONNECT_TIMEOUT", "1s")
     study = write_study(landscape / "a.toml", study_text())
-    with pytest.raises(ValueError, match=rf"cannot reach the Dask scheduler at '{address}': .*{message}.*Check the address"):
+    with pytest.raises(ValueError, match=rf"cannot reach the Dask scheduler at '{address}': .*{message}.*Check the "
+                                         r"address"):
         run_batch([study], scheduler=address, summary=tmp_path / "s.csv", stream=io.StringIO())
+
+
+def test_batch_on_a_tls_cluster_with_credentials_from_dask_configuration(landscape, tmp_path):
+    """A LocalCluster that speaks only TLS, with certificates made for the test (distributed's
+    Security.temporary, which uses the cryptography package); the command line finds the client's
+    credentials in Dask's configuration, here its environment variables."""
+    distributed = pytest.importorskip("distributed")
+    pytest.importorskip("cryptography")
+    from distributed.security import Security
+    security = Security.temporary()
+    files = {}
+    for name, pem in [("ca", security.tls_ca_file), ("cert", security.tls_client_cert),
+                      ("key", security.tls_client_key)]:
+        files[name] = tmp_path / f"{name}.pem"
+        files[name].write_text(pem)
+    study = write_study(landscape / "a.toml", study_text(folder="tls_out"))
+    with distributed.LocalCluster(n_workers=1, threads_per_worker=1, processes=False, protocol="tls",
+                                  security=security, dashboard_address=None) as cluster:
+        assert cluster.scheduler_address.startswith("tls://")
+        args = ["batch", study, "--scheduler", cluster.scheduler_address, "--summary", tmp_path / "s.csv"]
+        without = run_cli(*args, cwd=landscape)
+        assert without.returncode == 1 and "Traceback" not in without.stderr
+        assert "uses TLS, but Dask's configuration names no certificates" in without.stderr
+        env = {"DASK_DISTRIBUTED__COMM__TLS__CA_FILE": str(files["ca"]),
+               "DASK_DISTRIBUTED__COMM__TLS__CLIENT__CERT": str(files["cert"]),
+               "DASK_DISTRIBUTED__COMM__TLS__CLIENT__KEY": str(files["key"])}
+        done = run_cli(*args, cwd=landscape, env=env)
+        assert done.returncode == 0, done.stderr
+        assert "1 done" in done.stdout
+    assert json.loads((landscape / "tls_out" / "manifest.json").read_text())["outputs"]

@@ -65,3 +65,24 @@ def test_weight_column_needs_points(study):
         lf.run_study(study(patches='raster = "patches.tif"\nweight_column = "adults"'))
     with pytest.raises(lf.ConfigError, match=r"'patches\.weight_column' only applies to patch points"):
         load_study(study(patches='raster = "patches.tif"\nweight_column = "adults"'))   # before any input is read
+
+
+def test_each_distinct_system_is_factorised_once_and_the_manifest_says_who_shared_it(study, tif):
+    labels = np.zeros((6, 8), dtype="int32")
+    labels[1, 1:3], labels[4, 5:7], labels[1, 5] = 1, 2, 3
+    tif("three.tif", labels, nodata=0)
+    # hitting maps of a pair need only the walk absorbed at that pair: the every-patch walk is not factorised
+    alone = lf.run_study(study(patches='raster = "three.tif"',
+                               analyses="[analyses.hitting_probability]\npairs = [[1, 2]]\n"))
+    assert [s["purpose"] for s in alone["solvers"]] == ["hitting probability (two patches absorbing)"]
+    # three steps on the every-patch walk share one factor; two steps share the patch voltages
+    both = lf.run_study(study(analyses="[analyses.effective_resistance]\n\n[analyses.current_density]\n\n"
+                                       "[analyses.absorption_probability]\n\n[analyses.expected_steps]\n\n"
+                                       "[analyses.hitting_probability]\nbefore_any_other = [1]\n"))
+    by_purpose = {s["purpose"]: s for s in both["solvers"]}
+    assert set(by_purpose) == {"patch voltages (effective resistance, current)",
+                               "absorbing walk (every patch absorbing)"}
+    assert by_purpose["patch voltages (effective resistance, current)"]["used_by"] == [
+        "effective_resistance", "current_density"]
+    assert by_purpose["absorbing walk (every patch absorbing)"]["used_by"] == [
+        "hitting_probability", "absorption_probability", "expected_steps"]
