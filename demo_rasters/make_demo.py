@@ -5,7 +5,9 @@ The landscape is 240 x 320 cells of 25 m (6 x 8 km) in ETRS89 / UTM zone 32N.
 
 Resistance per metre of travel (invented, for illustration only):
 woodland 1, hedgerows and stream banks 2, pasture 4, arable 10,
-farmyards and villages 40, the road 150. Ponds are the patches.
+farmyards and villages 40, the road 150. Ponds are the patches: round polygons in a GeoPackage
+(ponds.gpkg, in longitude/latitude, EPSG:4326, as a field survey's GPS would give them), with
+a numeric id, a name and the adults counted; ponds.tif is the same ponds rasterised.
 Per-step death probability of a dispersing walker (invented): 0.3 on the road, 0.001 elsewhere.
 
 Run:  python demo_rasters/make_demo.py   (writes next to this script)
@@ -58,19 +60,42 @@ def landscape(seed=SEED):
     return resistance, road, dist_stream
 
 
-def ponds(resistance, seed=SEED):
+NAMES = ["Alder pond", "Mill pond", "Heron pond", "Willow pond", "Church pond", "Orchard pond",
+         "Quarry pond", "Sedge pond", "Moor pond", "Lark pond"]
+
+
+def pond_polygons(seed=SEED):
+    """The ponds as round polygons in the raster's CRS (map coordinates), with their ids and names."""
+    import geopandas as gpd
+    from shapely.geometry import Point
+
     rng = np.random.default_rng(seed + 1)
     centres = [(40, 30), (95, 110), (150, 40), (205, 95), (60, 200), (130, 175),
                (190, 215), (105, 290), (215, 300), (30, 130)]
-    rows, cols = np.mgrid[0:ROWS, 0:COLS]
-    labels = np.zeros((ROWS, COLS), dtype=np.uint8)
+    geoms, densities = [], []
+    for r0, c0 in centres:
+        radius = rng.uniform(1.5, 3.5) * CELL
+        x, y = TRANSFORM * (c0 + 0.5, r0 + 0.5)
+        geoms.append(Point(x, y).buffer(radius, quad_segs=16))
+        densities.append(rng.uniform(5, 40))     # adults per cell
+    return gpd.GeoDataFrame({"id": np.arange(1, len(centres) + 1), "name": NAMES, "density": densities},
+                            geometry=geoms, crs=CRS)
+
+
+def ponds(resistance, seed=SEED):
+    """Pond labels (the cells whose centres lie in a pond), adults per cell, and the GeoPackage layer in
+    EPSG:4326 with each pond's adults counted."""
+    from rasterio.features import rasterize
+
+    frame = pond_polygons(seed)
+    labels = rasterize(zip(frame.geometry, frame["id"]), out_shape=(ROWS, COLS), transform=TRANSFORM,
+                       fill=0, dtype="uint8")
+    labels[~np.isfinite(resistance)] = 0
     population = np.zeros((ROWS, COLS), dtype=np.float32)
-    for pond, (r0, c0) in enumerate(centres, start=1):
-        radius = rng.uniform(1.5, 3.5)
-        cells = ((rows - r0) ** 2 + (cols - c0) ** 2 <= radius**2) & np.isfinite(resistance)
-        labels[cells] = pond
-        population[cells] = rng.uniform(5, 40)     # adults per cell
-    return labels, population
+    for pond, density in zip(frame["id"], frame["density"]):
+        population[labels == pond] = density
+    frame["adults"] = [float(population[labels == pond].sum()) for pond in frame["id"]]
+    return labels, population, frame.drop(columns="density").to_crs("EPSG:4326")
 
 
 def with_underpass(resistance, road, dist_stream):
@@ -111,14 +136,16 @@ def write(name, array, dtype, nodata):
 
 def main():
     resistance, road, _ = landscape()
-    labels, population = ponds(resistance)
+    labels, population, pond_layer = ponds(resistance)
+    (HERE / "ponds.gpkg").unlink(missing_ok=True)
+    pond_layer.to_file(HERE / "ponds.gpkg", layer="ponds", driver="GPKG", engine="pyogrio")
     write("resistance.tif", resistance, "float32", -9999.0)
     write("ponds.tif", labels, "uint8", 0)
     write("pond_population.tif", population, "float32", -9999.0)
     write("resistance_with_underpass.tif", with_underpass(*landscape()), "float32", -9999.0)
     write("road_mortality.tif", road_mortality(resistance, road), "float32", -9999.0)
     write("suitability.tif", suitability(resistance), "float32", -9999.0)
-    print(f"wrote demo rasters to {HERE}")
+    print(f"wrote demo rasters and ponds.gpkg to {HERE}")
 
 
 if __name__ == "__main__":

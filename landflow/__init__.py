@@ -68,8 +68,20 @@ def read_patch_points(path, grid, **kwargs):
     return _read(path, grid, **kwargs)
 
 
+def read_patch_features(path, grid, **kwargs):
+    """Patches from points or polygons in a vector file; see :func:`landflow.io.vectors.read_patch_features`."""
+    from .io.vectors import read_patch_features as _read
+    return _read(path, grid, **kwargs)
+
+
+def patches_from_features(frame, grid, **kwargs):
+    """Patches from a GeoDataFrame of points or polygons; see :func:`landflow.io.vectors.patches_from_features`."""
+    from .io.vectors import patches_from_features as _make
+    return _make(frame, grid, **kwargs)
+
+
 def write_geotiff(path, array, grid, **profile):
-    """Write an array on ``grid`` as a GeoTIFF; see :func:`landflow.io.rasters.write_geotiff`."""
+    """Write an array on ``grid`` as a Cloud-Optimized GeoTIFF; see :func:`landflow.io.rasters.write_geotiff`."""
     from .io.rasters import write_geotiff as _write
     return _write(path, array, grid, **profile)
 
@@ -83,6 +95,7 @@ __all__ = [
     "simulate_walks", "WalkSample", "StrandedWalkWarning",
     "resistance_from_suitability",
     "run_study", "check_study", "run_batch", "read_grid", "read_patch_raster", "read_patch_points", "write_geotiff",
+    "read_patch_features", "patches_from_features",
     "cell_edges", "connectivity", "link_conductance", "corridor_ranking", "corridor", "objective_weights",
     "restoration_gain", "scenario_change", "LeastCost", "least_cost", "least_cost_table",
     "LandflowError", "InputError", "ConfigError", "SolverError",

@@ -109,7 +109,8 @@ class CellGraph:
         Patch labels; patch ``patch_ids[p]`` is node ``p``.
     shape : tuple
         Grid shape.
-    neighbours, edge_rule : the settings the graph was built with.
+    neighbours, edge_rule, values_per : the settings the graph was built with.
+    transform, crs : the grid's georeferencing, for :meth:`to_xarray`.
     """
 
     conductance: sp.csr_array
@@ -118,6 +119,9 @@ class CellGraph:
     shape: tuple
     neighbours: int = 8
     edge_rule: str = "mean_resistance"
+    values_per: str = "length"
+    transform: object = None
+    crs: object = None
 
     @property
     def n_nodes(self):
@@ -177,8 +181,21 @@ class CellGraph:
         out[inside] = node_values[self.node_of_cell[inside]]
         return out
 
+    def to_xarray(self, values, *, name=None, units=None):
+        """Per-node values (or a full cell array) as a georeferenced xarray.DataArray (y, x).
 
-def build_graph(grid, patches=None, *, kind="resistance", neighbours=8, edge_rule="mean_resistance"):
+        Cell-centre coordinates from the grid's transform, the CRS written with
+        rioxarray, ``units`` in the attributes; NaN outside the landscape.
+        Needs the ``xarray`` extra.
+        """
+        from .io.xarray import to_xarray        # the I/O layer writes the georeferencing (rioxarray)
+        values = np.asarray(values)
+        cells = values if values.shape == self.shape else self.to_raster(values, dtype=np.float64)
+        return to_xarray(cells, self.transform, self.crs, name=name, units=units)
+
+
+def build_graph(grid, patches=None, *, kind="resistance", neighbours=8, edge_rule="mean_resistance",
+                values_per="length"):
     """Build the conductance graph of a grid, merging each patch into one node.
 
     Parameters
@@ -191,6 +208,14 @@ def build_graph(grid, patches=None, *, kind="resistance", neighbours=8, edge_rul
     kind : {"resistance", "conductance"}
     neighbours : {8, 4}
     edge_rule : {"mean_resistance", "mean_conductance"}
+    values_per : {"length", "square"}
+        ``length`` (default): values are resistance per unit length of travel,
+        C_ij = 1 / (d (r_i + r_j) / 2), so effective resistance grows with
+        the cell size. ``square``: values are the sheet resistance rho of a
+        continuous sheet (resistance per square), C_ij = lambda_ij / rho_ij
+        with dimensionless lambda chosen so that a uniform raster conducts
+        like the sheet whatever the cell size (see docs/method.md); effective
+        resistance then converges as the grid is refined.
 
     Returns
     -------
@@ -215,6 +240,7 @@ def build_graph(grid, patches=None, *, kind="resistance", neighbours=8, edge_rul
            [1., 0., 1.],
            [0., 1., 0.]])
     """
+    _check_values_per(values_per)
     mask, values, edge_function = _surface(grid, kind, neighbours, edge_rule)
     cells = np.flatnonzero(mask.reshape(-1))
     labels = np.zeros(cells.size, dtype=np.int64)
@@ -238,8 +264,9 @@ def build_graph(grid, patches=None, *, kind="resistance", neighbours=8, edge_rul
     node_of_cell = np.full(grid.shape, -1, dtype=np.int64)
     node_of_cell.reshape(-1)[cells] = node
     del cells, node
-    merged = _edges_to_csr(values, mask, node_of_cell, n_nodes, neighbours, grid.cell_size, edge_function)
-    return CellGraph(merged, node_of_cell, patch_ids, grid.shape, neighbours, edge_rule)
+    merged = _edges_to_csr(values, mask, node_of_cell, n_nodes, grid, neighbours, edge_function, values_per)
+    return CellGraph(merged, node_of_cell, patch_ids, grid.shape, neighbours, edge_rule, values_per,
+                     grid.transform, grid.crs)
 
 
 def _surface(grid, kind, neighbours, edge_rule):
@@ -267,29 +294,81 @@ def _surface(grid, kind, neighbours, edge_rule):
     return mask, values, edge_function
 
 
-def _neighbour_steps(shape, neighbours, cell_size):
+#: How raster values are read: resistance (conductance) per unit length of travel, or per square of a
+#: continuous sheet (independent of the cell size).
+VALUES_PER = ("length", "square")
+
+#: Diagonal weight of the sheet reading on square cells, 1 / (sqrt(2) (1 + sqrt(2))): the per-length rule's
+#: ratio of diagonal to side conductance (1 / sqrt(2)), scaled so that a uniform sheet conducts 1 / rho.
+_SHEET_DIAGONAL = 1.0 / (np.sqrt(2.0) * (1.0 + np.sqrt(2.0)))
+
+
+def _sheet_factors(width, height, neighbours):
+    """Dimensionless factors lambda of the sheet reading, C = lambda / rho, for side (east-west and north-south)
+    and diagonal edges of cells ``width`` x ``height`` (numbers or per-row arrays).
+
+    A lattice whose edges e (length vector Δ_e) have conductances C_e conducts like a sheet of conductivity
+    sigma_xx = sum_e C_e Δx_e² / (cell area) (one term per edge of a cell's half-neighbourhood). With
+    lambda_ew = h/w - 2 lambda_d, lambda_ns = w/h - 2 lambda_d and lambda_d = q min(w/h, h/w), both
+    sigma_xx and sigma_yy equal 1/rho for any cell shape, with no dependence on the cell size.
+    """
+    if neighbours == 4:
+        return height / width, width / height, 0.0
+    diagonal = _SHEET_DIAGONAL * np.minimum(width / height, height / width)
+    return height / width - 2 * diagonal, width / height - 2 * diagonal, diagonal
+
+
+def _neighbour_steps(grid, neighbours, values_per="length"):
     """For each neighbour direction: slices ``here`` and ``there`` pairing every cell with that
-    neighbour, and their centre distance. The neighbour always has the larger flat index."""
-    rows, cols = shape
-    width, height = cell_size
-    steps = [(0, 1, float(width)), (1, 0, float(height))]
-    if neighbours == 8:
-        diagonal = float(np.hypot(height, width))
-        steps += [(1, 1, diagonal), (1, -1, diagonal)]
-    for dr, dc, distance in steps:
+    neighbour, their centre distance, and the length the edge rule divides by (the distance for
+    values per length; 1 / lambda for values per square, see :func:`_sheet_factors`). Distances are
+    numbers, or arrays over the ``here`` slice when the lengths change from row to row, as on a
+    longitude/latitude grid (:meth:`Grid.cell_lengths`). The neighbour always has the larger flat index."""
+    rows, cols = grid.shape
+    if grid.is_geographic:
+        ew, ns, diagonal = grid.cell_lengths()
+    else:
+        width, height = grid.cell_size
+        ew, ns, diagonal = float(width), float(height), float(np.hypot(height, width))
+    steps = [(0, 1, ew), (1, 0, ns)] + ([(1, 1, diagonal), (1, -1, diagonal)] if neighbours == 8 else [])
+    if values_per == "square":
+        if grid.is_geographic:      # a row's cell: ew[r] wide and (locally) ns high; between rows: the means
+            row_height = np.concatenate([ns[:1], (ns[:-1] + ns[1:]) / 2, ns[-1:]]) if ns.size else np.ones(1)
+            side_ew, _, _ = _sheet_factors(ew, row_height[: ew.size], neighbours)
+            between = (ew[:-1] + ew[1:]) / 2
+            _, side_ns, diag = _sheet_factors(between, ns, neighbours)
+        else:
+            side_ew, side_ns, diag = _sheet_factors(ew, ns, neighbours)
+        lambdas = [side_ew, side_ns] + ([diag, diag] if neighbours == 8 else [])
+    else:
+        lambdas = [None] * len(steps)
+    for (dr, dc, distance), lam in zip(steps, lambdas):
         here = (slice(0, rows - dr), slice(max(0, -dc), cols - max(0, dc)))
         there = (slice(dr, rows), slice(max(0, dc), cols - max(0, -dc)))
-        yield here, there, distance
+        rule_length = distance if lam is None else 1.0 / np.asarray(lam, dtype=float)
+        yield here, there, _rows(distance, rows - dr, cols - abs(dc)), _rows(rule_length, rows - dr, cols - abs(dc))
 
 
-def _edges_to_csr(values, mask, node_of_cell, n_nodes, neighbours, cell_size, edge_function):
+def _rows(value, rows, cols):
+    """A number as it is; a per-row array spread (without copying) over a slice of rows x cols."""
+    if np.ndim(value):
+        return np.broadcast_to(np.asarray(value, dtype=float)[:, None], (rows, cols))
+    return float(value)
+
+
+def _pick(distance, both):
+    """The distances of the edges selected by ``both`` (a scalar stays a scalar)."""
+    return distance[both] if np.ndim(distance) else distance
+
+
+def _edges_to_csr(values, mask, node_of_cell, n_nodes, grid, neighbours, edge_function, values_per):
     """Symmetric node-to-node conductance matrix from the grid's neighbour pairs (no self-loops)."""
     heads, tails, conductances = [], [], []
-    for here, there, distance in _neighbour_steps(mask.shape, neighbours, cell_size):
+    for here, there, _, length in _neighbour_steps(grid, neighbours, values_per):
         both = mask[here] & mask[there]
         a = node_of_cell[here][both]
         b = node_of_cell[there][both]
-        c = edge_function(values[here][both], values[there][both], distance)
+        c = edge_function(values[here][both], values[there][both], _pick(length, both))
         apart = a != b                                  # edges inside a patch vanish when it is merged
         heads.append(a[apart])
         tails.append(b[apart])
@@ -412,15 +491,25 @@ class CellEdges(NamedTuple):
         Centre distance of the two cells, map units.
     conductance : ndarray of float
         Edge conductance C_ij by the graph's edge rule.
+    rule_length : ndarray of float
+        The length the edge rule divides by: the distance when values are per
+        length, 1 / lambda when they are per square (C_ij = rule(r_i, r_j) /
+        rule_length); derivatives by a cell's value use it.
     """
 
     cell_i: np.ndarray
     cell_j: np.ndarray
     distance: np.ndarray
     conductance: np.ndarray
+    rule_length: np.ndarray
 
 
-def cell_edges(grid, *, kind="resistance", neighbours=8, edge_rule="mean_resistance"):
+def _check_values_per(values_per):
+    if values_per not in VALUES_PER:
+        raise InputError(f"values_per must be 'length' or 'square'; got {values_per!r}.")
+
+
+def cell_edges(grid, *, kind="resistance", neighbours=8, edge_rule="mean_resistance", values_per="length"):
     """Every edge between two neighbouring landscape cells, before patch merging.
 
     :func:`build_graph` sums these edges into its nodes (a patch's internal
@@ -431,7 +520,7 @@ def cell_edges(grid, *, kind="resistance", neighbours=8, edge_rule="mean_resista
     Parameters
     ----------
     grid : Grid
-    kind, neighbours, edge_rule : as for :func:`build_graph`.
+    kind, neighbours, edge_rule, values_per : as for :func:`build_graph`.
 
     Returns
     -------
@@ -448,16 +537,19 @@ def cell_edges(grid, *, kind="resistance", neighbours=8, edge_rule="mean_resista
     >>> e.cell_i, e.cell_j, e.distance, e.conductance
     (array([0]), array([1]), array([2.]), array([0.25]))
     """
+    _check_values_per(values_per)
     mask, values, edge_function = _surface(grid, kind, neighbours, edge_rule)
     flat = np.arange(mask.size, dtype=np.int64).reshape(mask.shape)
     parts = []
-    for here, there, distance in _neighbour_steps(mask.shape, neighbours, grid.cell_size):
+    for here, there, distance, length in _neighbour_steps(grid, neighbours, values_per):
         both = mask[here] & mask[there]
-        parts.append((flat[here][both], flat[there][both], np.full(int(both.sum()), distance),
-                      edge_function(values[here][both], values[there][both], distance)))
-    cell_i, cell_j, d, conductance = (np.concatenate(column) for column in zip(*parts))
+        d = np.broadcast_to(_pick(distance, both), (int(both.sum()),))
+        rule = np.broadcast_to(_pick(length, both), (int(both.sum()),))
+        parts.append((flat[here][both], flat[there][both], d,
+                      edge_function(values[here][both], values[there][both], rule), rule))
+    cell_i, cell_j, d, conductance, rule = (np.concatenate(column) for column in zip(*parts))
     order = np.lexsort((cell_j, cell_i))            # by first cell, then second: row-major
-    return CellEdges(cell_i[order], cell_j[order], d[order], conductance[order])
+    return CellEdges(cell_i[order], cell_j[order], d[order], conductance[order], rule[order])
 
 
 def nested_dissection_order(graph, *, leaf=16):

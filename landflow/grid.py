@@ -32,6 +32,9 @@ class Grid:
         Where the values came from, used in error messages.
     nodata : float or None
         The nodata value of the source file, if any.
+    aligned : dict or None
+        When the values were warped from another grid: the source, the
+        method and both grids (for the manifest).
     """
 
     values: np.ndarray
@@ -40,6 +43,7 @@ class Grid:
     crs: object = None
     source: str = "array"
     nodata: float | None = None
+    aligned: dict | None = None
 
     def __post_init__(self):
         values = np.asarray(self.values)
@@ -86,6 +90,9 @@ class Grid:
         >>> g.cell_size
         (10.0, 10.0)
         """
+        if hasattr(values, "dims") and hasattr(values, "coords"):     # an xarray object: keep its georeferencing
+            raise InputError("Grid.from_array got an xarray object, whose CRS and transform it would drop; use "
+                             "Grid.from_xarray(data_array) instead.")
         values = np.asarray(values, dtype=np.float64)
         width, height = (cell_size, cell_size) if np.isscalar(cell_size) else cell_size
         if not (np.isfinite(width) and np.isfinite(height) and width > 0 and height > 0):
@@ -95,6 +102,22 @@ class Grid:
         transform = Affine(float(width), 0.0, origin[0], 0.0, -float(height), origin[1])
         return cls(values, mask, transform, crs)
 
+    @classmethod
+    def from_xarray(cls, data, *, mask=None):
+        """A grid from a 2-D DataArray with a CRS and a transform (rioxarray); see
+        :func:`landflow.io.xarray.grid_from_xarray`. Needs the ``xarray`` extra.
+
+        Examples
+        --------
+        >>> import numpy as np, xarray as xr, rioxarray
+        >>> da = xr.DataArray(np.ones((2, 3)), dims=("y", "x"),
+        ...                   coords={"y": [15.0, 5.0], "x": [5.0, 15.0, 25.0]}).rio.write_crs("EPSG:32632")
+        >>> Grid.from_xarray(da).cell_size
+        (10.0, 10.0)
+        """
+        from .io.xarray import grid_from_xarray    # the I/O layer reads the georeferencing (rioxarray)
+        return grid_from_xarray(data, mask=mask)
+
     @property
     def shape(self):
         return self.values.shape
@@ -103,6 +126,59 @@ class Grid:
     def cell_size(self):
         """Cell (width, height) in map units, both positive."""
         return abs(self.transform.a), abs(self.transform.e)
+
+    @property
+    def is_geographic(self):
+        """True when the CRS is geographic (longitude/latitude in degrees)."""
+        return self.crs is not None and bool(getattr(self.crs, "is_geographic", False))
+
+    def cell_lengths(self):
+        """Centre-to-centre lengths between neighbouring cells, per row, in metres (or map units).
+
+        Returns
+        -------
+        east_west : ndarray, shape (rows,)
+            Distance from a cell's centre to its east neighbour's, in each row.
+        north_south : ndarray, shape (rows - 1,)
+            Distance from a centre in row r to the one below it in row r + 1.
+        diagonal : ndarray, shape (rows - 1,)
+            Diagonal between rows r and r + 1: ``hypot(north_south[r],
+            (east_west[r] + east_west[r + 1]) / 2)``, from the local lengths.
+
+        Notes
+        -----
+        In a projected CRS every row has the cell width and height. In a
+        geographic CRS the lengths are geodesic distances on the CRS's
+        ellipsoid (``pyproj.Geod.inv``, Karney 2013, "Algorithms for
+        geodesics", J. Geodesy 87:43, doi:10.1007/s00190-012-0578-z): east-west
+        along a parallel between adjacent centres, north-south along a
+        meridian. Cost: O(rows).
+        """
+        rows = self.shape[0]
+        width, height = self.cell_size
+        if not self.is_geographic:
+            ew = np.full(rows, width)
+            ns = np.full(max(rows - 1, 0), height)
+        else:
+            from pyproj import CRS
+            crs = self.crs
+            geod = CRS.from_user_input(crs.to_wkt() if hasattr(crs, "to_wkt") else crs).get_geod()
+            _, lat = self.xy(np.arange(rows), 0)
+            lat = np.asarray(lat, dtype=float)
+            zeros = np.zeros(rows)
+            _, _, ew = geod.inv(zeros, lat, zeros + width, lat)
+            _, _, ns = geod.inv(zeros[:-1], lat[:-1], zeros[:-1], lat[1:])
+            ew, ns = np.asarray(ew, dtype=float), np.asarray(ns, dtype=float)
+        diagonal = np.hypot(ns, (ew[:-1] + ew[1:]) / 2.0)
+        return ew, ns, diagonal
+
+    def cell_size_metres(self):
+        """Cell (width, height) in metres at the grid's middle row (the cell size itself when projected)."""
+        if not self.is_geographic:
+            return self.cell_size
+        ew, ns, _ = self.cell_lengths()
+        mid = self.shape[0] // 2
+        return float(ew[mid]), float(ns[min(mid, ns.size - 1)]) if ns.size else float("nan")
 
     def xy(self, row, col):
         """Map coordinates of the centre of cell(s) (row, col)."""

@@ -35,8 +35,13 @@ def write_report(path, manifest, caution=None):
         f"landflow {manifest['landflow_version']}; study file: {manifest['study_file'] or '(from Python)'}", "",
         "## Caution", "", caution, "",
         "## Landscape", "",
-        f"- {land['rows']} x {land['cols']} cells of {land['cell_size'][0]:g} x {land['cell_size'][1]:g} map units, "
-        f"CRS {land['crs'] or 'none'}",
+        f"- {land['rows']} x {land['cols']} cells of {land['cell_size'][0]:g} x {land['cell_size'][1]:g} map units"
+        + (f" (about {land['cell_size_metres'][0]:.4g} x {land['cell_size_metres'][1]:.4g} m mid-grid)"
+           if land.get("geographic") else "") + f", CRS {land['crs'] or 'none'}",
+        f"- values read per {manifest['settings']['landscape'].get('values_per', 'length')}: effective resistance "
+        + ("scales with the cell size (docs/method.md, 'Units and resolution')"
+           if manifest['settings']['landscape'].get('values_per', 'length') == 'length'
+           else "does not depend on the cell size (resistance per square of a sheet)"),
         f"- {land['cells']:,} cells in the landscape, {len(land['patches'])} patches, {land['pieces']} connected piece(s)",
     ]
     for solver in manifest["solvers"]:
@@ -186,8 +191,10 @@ def _charts(folder, manifest):
     out = {}
     matrix = _read_csv(folder, manifest, "effective_resistance_matrix.csv")
     if matrix is not None and len(matrix) >= 2:
-        ids = [str(int(v)) for v in matrix["patch"]]
-        values = matrix.drop(columns="patch").to_numpy(dtype=float)
+        first = matrix.columns[0]          # "patch", or "patch_name" where patches have text ids
+        ids = [str(int(v)) if isinstance(v, (int, np.integer)) or (isinstance(v, float) and v.is_integer())
+               else str(v) for v in matrix[first]]
+        values = matrix.drop(columns=first).to_numpy(dtype=float)
         order = charts.cluster_order(values)
         shown = values[np.ix_(order, order)]
         np.fill_diagonal(shown, np.nan)

@@ -58,9 +58,12 @@ def test_negative_conductance(tif):
         lf.build_graph(read_grid(tif("c.tif", values)), kind="conductance")
 
 
-def test_geographic_crs(tif):
-    with pytest.raises(lf.InputError, match=r"geographic CRS \(EPSG:4326\) whose units are degrees.*Reproject"):
-        read_grid(tif("degrees.tif", np.ones((3, 3), dtype="float32"), crs="EPSG:4326", cell=0.01))
+def test_geographic_crs_is_read_in_metres_and_the_flat_degrees_option_is_gone(tif):
+    grid = read_grid(tif("degrees.tif", np.ones((3, 3), dtype="float32"), crs="EPSG:4326", cell=0.01,
+                         origin=(9.0, 50.0)))
+    assert grid.is_geographic and 700 < grid.cell_size_metres()[0] < 720     # 0.01 degree of longitude at 50 N
+    with pytest.raises(TypeError, match="allow_geographic"):
+        read_grid(tif("degrees2.tif", np.ones((3, 3), dtype="float32"), crs="EPSG:4326"), allow_geographic=True)
 
 
 def test_raster_with_several_bands(tmp_path):

@@ -44,20 +44,24 @@ def test_run_succeeds_and_writes_the_outputs(demo_run):
     assert re.match(rf"landflow: wrote \d+ outputs to {re.escape(str(out))} in [\d.]+ s", result.stdout)
     names = {p.name for p in out.iterdir()}
     assert {"effective_resistance.csv", "effective_resistance_matrix.csv", "current_density.tif",
-            "current_density.png", "manifest.json", "report.md"} <= names
+            "current_density.png", "manifest.json", "report.md", "map_layers.gpkg"} <= names
+    with rasterio.open(out / "current_density.tif") as src:
+        assert src.tags(ns="IMAGE_STRUCTURE")["LAYOUT"] == "COG" and src.overviews(1)
     assert not any(p.name.startswith(".") for p in out.parent.iterdir())     # no temporary folders left
 
 
 def test_numbers_match_the_api(demo_run):
     study, out, *_ = demo_run
     grid = read_grid(study.parent / "resistance.tif")
-    patches = read_patch_raster(study.parent / "ponds.tif", grid)
+    patches = lf.read_patch_features(study.parent / "ponds.gpkg", grid, layer="ponds")
+    np.testing.assert_array_equal(patches.labels, read_patch_raster(study.parent / "ponds.tif", grid).labels)
     graph = lf.build_graph(grid, patches.labels, neighbours=8, edge_rule="mean_resistance")
     voltages = lf.patch_voltages(graph)
     expected = lf.resistance_table(voltages)
     written = pd.read_csv(out / "effective_resistance.csv")
     assert list(written.columns) == ["patch_a", "patch_b", "resistance", "escape_probability_a_to_b",
-                                     "escape_probability_b_to_a", "commute_time"]
+                                     "escape_probability_b_to_a", "commute_time", "cell_width", "cell_height",
+                                     "values_per"]
     assert len(written) == graph.n_patches * (graph.n_patches - 1) // 2
     np.testing.assert_array_equal(written[["patch_a", "patch_b"]], expected[["patch_a", "patch_b"]])
     for column in ["resistance", "escape_probability_a_to_b", "escape_probability_b_to_a", "commute_time"]:
@@ -77,8 +81,8 @@ def test_manifest_records_inputs_settings_and_solver(demo_run):
     manifest = json.loads((out / "manifest.json").read_text(encoding="utf-8"))
     assert manifest["landflow_version"] == lf.__version__
     inputs = {Path(item["path"]).name: item["sha256"] for item in manifest["inputs"]}
-    referenced = set(re.findall(r'"([\w.]+\.tif)"', study.read_text(encoding="utf-8")))
-    assert {"resistance.tif", "ponds.tif"} <= referenced
+    referenced = set(re.findall(r'"([\w.]+\.(?:tif|gpkg))"', study.read_text(encoding="utf-8")))
+    assert {"resistance.tif", "ponds.gpkg"} <= referenced
     assert set(inputs) == referenced
     for name, digest in inputs.items():
         assert digest == hashlib.sha256((study.parent / name).read_bytes()).hexdigest()

@@ -415,7 +415,8 @@ def restoration_gain(voltages, grid, weights, *, kind="resistance"):
     array([[0.5, 1. , 0.5]])
     """
     graph = voltages.graph
-    edges = cell_edges(grid, kind=kind, neighbours=graph.neighbours, edge_rule=graph.edge_rule)
+    edges = cell_edges(grid, kind=kind, neighbours=graph.neighbours, edge_rule=graph.edge_rule,
+                       values_per=graph.values_per)
     w = np.asarray(weights, dtype=float)
     lap_w = np.diag(w.sum(axis=1)) - w
     node = graph.node_of_cell.reshape(-1)
@@ -429,7 +430,7 @@ def restoration_gain(voltages, grid, weights, *, kind="resistance"):
         s[start:stop] = np.einsum("ea,ab,eb->e", drop, lap_w, drop)
     s = np.maximum(s, 0.0)
     flat = grid.values.reshape(-1)
-    d, cond = edges.distance, edges.conductance
+    d, cond = edges.rule_length, edges.conductance
     if graph.edge_rule == "mean_resistance":
         if kind == "resistance":
             di = dj = cond**2 * d / 2.0

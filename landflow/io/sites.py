@@ -23,21 +23,44 @@ class Patches:
     weight : dict {patch id: float} or None
         Each patch's weight in the pair sum (population size, area, quality).
     source : str
+    names : dict {code: str} or None
+        For patches read with text ids, the text of each numeric code used
+        inside landflow (codes 1, 2, ... in sorted order of the text); None for
+        numeric ids, which are their own codes.
     """
 
     labels: np.ndarray
     weight: dict | None = None
     source: str = "array"
+    names: dict | None = None
 
     @property
     def ids(self):
         ids = np.unique(self.labels)
         return ids[ids != 0]
 
+    def name_of(self, code):
+        """The id a user gave patch ``code``: its text id, or the number itself."""
+        if self.names is None:
+            return int(code)
+        return self.names.get(int(code), int(code))
 
-def read_patch_raster(path, grid):
-    """Patch labels from an integer raster on the same grid (0 or nodata = no patch)."""
-    src = read_aligned(path, grid, what="patch raster", integer=True)
+    @property
+    def id_table(self):
+        """``{code: id}`` for every patch: the text id for text ids, else the number (for legends and tables)."""
+        return {int(c): self.name_of(c) for c in self.ids}
+
+
+def read_patch_raster(path, grid, *, align=None, record=None):
+    """Patch labels from an integer raster on the same grid (0 or nodata = no patch).
+
+    ``align`` ("nearest" or "mode") warps a raster on another grid onto
+    ``grid``; see :func:`landflow.io.rasters.read_aligned` (also for ``record``).
+    """
+    if align == "mean":
+        raise InputError(f"{path}: patch labels cannot be averaged; align the patch raster with 'nearest' or "
+                         "'mode'.")
+    src = read_aligned(path, grid, what="patch raster", integer=True, align=align, record=record)
     values = np.where(src.mask, src.values, 0)
     if np.issubdtype(values.dtype, np.integer):            # read exactly, whatever the size of the labels
         bad = values < 0
@@ -52,8 +75,12 @@ def read_patch_raster(path, grid):
     return Patches(values.astype(np.int64), None, str(path))
 
 
-def read_patch_points(path, grid, *, weight_column=None):
+def read_patch_points(path, grid, *, weight_column=None, crs=None):
     """Patches from a CSV of points with columns ``x``, ``y``, ``id`` (map coordinates of the grid's CRS).
+
+    With ``crs`` (anything pyproj reads: "EPSG:4326", WKT, ...), ``x`` and
+    ``y`` are in that CRS and are reprojected to the grid's CRS with pyproj
+    (for EPSG:4326, x is longitude and y latitude).
 
     Each point marks the cell it falls in. Several points may share an id
     (one patch of several cells); two different ids in one cell are an error.
@@ -95,7 +122,10 @@ def read_patch_points(path, grid, *, weight_column=None):
             line = int(bad.argmax()) + 2
             raise InputError(f"{path}, line {line}: {weight_column!r} is {weight[line - 2]:g}; "
                              "a patch weight must be a finite number >= 0.")
-    rows, cols = grid.rowcol(table["x"].to_numpy(), table["y"].to_numpy())
+    x, y = table["x"].to_numpy(), table["y"].to_numpy()
+    if crs is not None:
+        x, y = _reproject_points(x, y, crs, grid, path)
+    rows, cols = grid.rowcol(x, y)
     inside = (rows >= 0) & (rows < grid.shape[0]) & (cols >= 0) & (cols < grid.shape[1])
     if not inside.all():
         n = int(np.argmin(inside))
@@ -126,9 +156,24 @@ def read_patch_points(path, grid, *, weight_column=None):
     return Patches(labels, weight, str(path))
 
 
-def patch_weight_from_raster(path, grid, patches):
-    """Strength of each patch as the sum of a raster's values over its cells."""
-    src = read_aligned(path, grid, what="patch weight raster")
+def _reproject_points(x, y, crs, grid, path):
+    from pyproj import CRS, Transformer
+    from pyproj.exceptions import CRSError
+    try:
+        source = CRS.from_user_input(crs)
+    except CRSError as exc:
+        raise InputError(f"{path}: cannot read the CRS {crs!r} of its points ({exc}); give one such as "
+                         "'EPSG:4326'.") from None
+    if grid.crs is None:
+        raise InputError(f"{path}: the points are in {crs} but the raster {grid.source} has no CRS to "
+                         "reproject them to. Give the raster a CRS.")
+    move = Transformer.from_crs(source, CRS.from_user_input(grid.crs), always_xy=True)
+    return move.transform(x, y)
+
+
+def patch_weight_from_raster(path, grid, patches, *, align=None, record=None):
+    """Weight of each patch as the sum of a raster's values over its cells (``align``: see read_aligned)."""
+    src = read_aligned(path, grid, what="patch weight raster", align=align, record=record)
     values = np.where(src.mask, src.values, 0.0)
     bad = ~np.isfinite(values) | (values < 0)
     if bad.any():

@@ -8,7 +8,8 @@ from pathlib import Path
 
 from ..errors import ConfigError
 from ..analyses.suitability import TRANSFORMS
-from ..graph import EDGE_RULES, NEIGHBOURS
+from ..graph import EDGE_RULES, NEIGHBOURS, VALUES_PER
+from ..io.rasters import ALIGN_METHODS
 from ..solve import METHODS
 from .schema import Key, Section, close_match, validate_section
 
@@ -45,8 +46,15 @@ def _non_negative(value):
 
 def _patch_rules(patches):
     if patches["raster"] is not None and patches["weight_column"] is not None:
-        return ("'patches.weight_column' only applies to patch points; with a patch raster use "
+        return ("'patches.weight_column' only applies to patch points or features; with a patch raster use "
                 "'patches.weight_raster'")
+    if patches["features"] is None:
+        for key in ("layer", "id_column", "all_touched"):
+            if patches[key] not in (None, False):
+                return f"'patches.{key}' only applies to 'patches.features' (a vector file); remove it"
+    if patches["crs"] is not None and patches["points"] is None:
+        return ("'patches.crs' gives the CRS of the CSV points' x and y; vector files and rasters carry their "
+                "own CRS. Remove it")
     return None
 
 
@@ -54,6 +62,25 @@ def _mortality_rules(mortality):
     if mortality["raster"] is not None and mortality["death_per_resistance"] is not None:
         return "has both 'raster' and 'death_per_resistance'; give one of them"
     return None
+
+
+#: Inputs that may be warped onto the landscape's grid: [alignment] key -> what it aligns.
+ALIGNED_INPUTS = {
+    "patch_raster": "alignment of [patches] raster ('nearest' or 'mode')",
+    "weight_raster": "alignment of [patches] weight_raster",
+    "mortality_raster": "alignment of [mortality] raster",
+    "crossing_time": "alignment of [analyses.expected_steps] crossing_time",
+    "release_raster": "alignment of [analyses.expected_visits] release_raster",
+    "changed_landscape": "alignment of [analyses.scenario_change] changed_landscape",
+}
+
+#: Where each aligned input's path is: [alignment] key -> (section or analysis, key).
+ALIGNED_PATHS = {
+    "patch_raster": ("patches", "raster"), "weight_raster": ("patches", "weight_raster"),
+    "mortality_raster": ("mortality", "raster"), "crossing_time": ("expected_steps", "crossing_time"),
+    "release_raster": ("expected_visits", "release_raster"),
+    "changed_landscape": ("scenario_change", "changed_landscape"),
+}
 
 
 SECTIONS = {
@@ -83,18 +110,33 @@ SECTIONS = {
                                           "no CRS, such as a PNG): its cells are then 1 x 1 map units"),
         "edge_rule": Key(str, "mean_resistance", "how two cells' values make an edge's conductance",
                          choices=EDGE_RULES),
+        "values_per": Key(str, "length", "how the values are read: 'length' = resistance (conductance) per unit "
+                                         "length of travel, so effective resistance grows with the cell size; "
+                                         "'square' = resistance per square of a continuous sheet, independent "
+                                         "of the cell size (docs/method.md, 'Units and resolution')",
+                          choices=VALUES_PER),
     }, "The surface the walk moves over: a resistance, conductance or habitat suitability raster.",
         exactly_one=(("resistance", "conductance", "suitability"),), check=_suitability_rules),
     "patches": Section({
         "raster": Key(str, None, "integer raster of patch labels on the landscape's grid, 0 = no patch", path="input",
                       unit="label", example="patches.tif"),
-        "points": Key(str, None, "CSV with columns x, y, id (map coordinates in the landscape's CRS)", path="input",
-                      unit="map units", example="sites.csv"),
-        "weight_column": Key(str, None, "column of the points CSV holding each patch's weight in the pair sum "
-                                        "(population size, area, quality)"),
+        "points": Key(str, None, "CSV with columns x, y, id (map coordinates in the landscape's CRS, or in "
+                                 "'crs')", path="input", unit="map units", example="sites.csv"),
+        "crs": Key(str, None, "CRS of the CSV points' x and y when not the landscape's (EPSG:4326: x = longitude, "
+                              "y = latitude); they are reprojected with pyproj", example="EPSG:4326"),
+        "features": Key(str, None, "vector file of points or polygons (GeoPackage, GeoJSON, Shapefile, "
+                                   "FlatGeobuf), reprojected to the landscape's CRS; a point marks its cell, a "
+                                   "polygon the cells whose centres it holds", path="input", example="ponds.gpkg"),
+        "layer": Key(str, None, "layer of 'features' to read (needed when the file has several)"),
+        "id_column": Key(str, None, "column of 'features' holding each patch's id: whole numbers > 0 or text "
+                                    "(default 'id'); text ids get numeric codes listed in the manifest"),
+        "all_touched": Key(bool, False, "polygons of 'features' claim every cell they touch, not only cells whose "
+                                        "centre they hold (for thin polygons)"),
+        "weight_column": Key(str, None, "column of the points CSV or of 'features' holding each patch's weight in "
+                                        "the pair sum (population size, area, quality)"),
         "weight_raster": Key(str, None, "raster summed over each patch's cells to give its weight in the pair "
                                         "sum", path="input", unit="weight per cell", example="population.tif"),
-    }, "Habitat patches or sample sites.", exactly_one=(("raster", "points"),), check=_patch_rules,
+    }, "Habitat patches or sample sites.", exactly_one=(("raster", "points", "features"),), check=_patch_rules,
         renamed={"strength_column": "weight_column", "strength_raster": "weight_raster"}),
     "mortality": Section({
         "raster": Key(str, None, "raster of per-step death probability in [0, 1) on the landscape's grid; "
@@ -104,6 +146,13 @@ SECTIONS = {
                                     unit="1 / resistance unit"),
     }, "Optional death of walkers on the way, used by the absorbing-walk analyses. Give at most one key; "
        "mortality on patch cells is ignored.", check=_mortality_rules),
+    "alignment": Section({
+        key: Key(str, None, doc, choices=ALIGN_METHODS) for key, doc in ALIGNED_INPUTS.items()
+    }, "Inputs on another grid or CRS than the landscape are refused unless named here; each named one is warped "
+       "onto the landscape's grid with rasterio.warp by the method given: 'nearest' (the source cell under each "
+       "cell centre: labels, classes), 'mode' (the most common source value over the cell: labels from a finer "
+       "raster) or 'mean' (area-weighted average: rates, probabilities; not counts). The manifest records each "
+       "warp. The landscape raster itself is never resampled."),
     "solver": Section({
         "method": Key(str, "auto", "linear solver: auto (direct or multigrid by size), direct (the fastest "
                                    "direct engine installed), multigrid (AMG + CG), or one direct engine: "
@@ -115,6 +164,8 @@ SECTIONS = {
     "output": Section({
         "folder": Key(str, "results", "folder for the outputs, relative to the study file", path="output"),
         "quicklooks": Key(bool, True, "write PNG quick-look maps"),
+        "map_layers": Key(bool, True, "write map_layers.gpkg: patches, links between them, least-cost routes and "
+                                      "listed cells as vector layers for a GIS"),
     }, "Where results go."),
 }
 
@@ -213,4 +264,27 @@ def study_from_dict(raw, *, base_dir=".", source="study", path=None):
                               f"Available: {', '.join(ANALYSES)}.")
     analyses = {name: validate_section(wanted[name], step.SETTINGS, f"analyses.{name}", base_dir, source)
                 for name, step in ANALYSES.items() if name in wanted}
+    for key, method in settings["alignment"].items():
+        if method is None:
+            continue
+        where, name = ALIGNED_PATHS[key]
+        table = settings.get(where, analyses.get(where)) or {}
+        if table.get(name) is None:
+            shown = f"[{where}]" if where in settings else f"[analyses.{where}]"
+            raise ConfigError(f"{source}: 'alignment.{key}' is set but {shown} {name} is not given; remove the "
+                              "alignment key or give that input.")
+    if settings["alignment"]["patch_raster"] == "mean":
+        raise ConfigError(f"{source}: 'alignment.patch_raster' = 'mean' would average patch labels; use 'nearest' "
+                          "or 'mode'.")
     return Study(path, settings, analyses)
+
+
+def aligned_inputs(study):
+    """``{input path as text: alignment method}`` of a study's [alignment] table."""
+    out = {}
+    for key, method in study.settings["alignment"].items():
+        if method is not None:
+            where, name = ALIGNED_PATHS[key]
+            table = study.settings.get(where, study.analyses.get(where)) or {}
+            out[str(table[name])] = method
+    return out

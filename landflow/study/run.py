@@ -24,7 +24,7 @@ from ..grid import Grid
 from ..io.rasters import read_aligned, read_grid, write_geotiff
 from ..io.sites import patch_weight_from_raster, read_patch_points, read_patch_raster
 from ..io.tables import write_csv
-from .config import Study, load_study
+from .config import Study, aligned_inputs, load_study
 from .folder import OutputFolder, check_output_folder, is_landflow_manifest
 
 __all__ = ["run_study", "check_study", "verify_folder", "protected_paths", "RunContext", "CAUTION"]
@@ -38,7 +38,8 @@ CAUTION = ("These are model outputs. They depend on the resistance values and on
 VOLTAGES_PURPOSE = "patch voltages (effective resistance, current)"
 WALK_PURPOSE = "absorbing walk (every patch absorbing)"
 
-_DEPENDENCIES = ("numpy", "scipy", "pandas", "rasterio", "scikit-image", "pyamg", "matplotlib", "jinja2")
+_DEPENDENCIES = ("numpy", "scipy", "pandas", "rasterio", "scikit-image", "pyamg", "matplotlib", "jinja2",
+                 "geopandas", "pyogrio", "pyproj", "shapely")
 
 
 class RunContext:
@@ -52,6 +53,7 @@ class RunContext:
         self.study = study
         self.folder = Path(folder)
         self.outputs = []
+        self.tables = {}
         self.warnings = []
         self.timings = {}
         self.stages = []         # (name, start, end) in seconds since the context was made, for the timeline
@@ -60,6 +62,8 @@ class RunContext:
         self._started = time.perf_counter()
         self.inputs = {}
         self._aligned = {}
+        self._align = aligned_inputs(study)
+        self.alignments = []
         self.summary = {}
         self.solvers = []
         self.shared_users = {}
@@ -81,16 +85,25 @@ class RunContext:
             self.kind = kind
             spec = self.study.settings["patches"]
             if spec["raster"] is not None:
-                self.patches = read_patch_raster(self._input(spec["raster"]), self.grid)
+                self.patches = read_patch_raster(self._input(spec["raster"]), self.grid,
+                                                 align=self._align.get(str(spec["raster"])), record=self.alignments)
+            elif spec["features"] is not None:
+                from ..io.vectors import read_patch_features
+                self.patches = read_patch_features(self._input(spec["features"]), self.grid, layer=spec["layer"],
+                                                   id_column=spec["id_column"] or "id",
+                                                   weight_column=spec["weight_column"],
+                                                   all_touched=spec["all_touched"])
             else:
                 self.patches = read_patch_points(self._input(spec["points"]), self.grid,
-                                                 weight_column=spec["weight_column"])
+                                                 weight_column=spec["weight_column"], crs=spec["crs"])
             if spec["weight_raster"] is not None:
                 self.patches.weight = patch_weight_from_raster(
-                    self._input(spec["weight_raster"]), self.grid, self.patches)
+                    self._input(spec["weight_raster"]), self.grid, self.patches,
+                    align=self._align.get(str(spec["weight_raster"])), record=self.alignments)
         with self.timed("build graph"):
             self.graph = build_graph(self.grid, self.patches.labels, kind=kind,
-                                     neighbours=land["neighbours"], edge_rule=land["edge_rule"])
+                                     neighbours=land["neighbours"], edge_rule=land["edge_rule"],
+                                     values_per=land["values_per"])
         self._check_patches()
 
     def _input(self, path):
@@ -104,7 +117,8 @@ class RunContext:
         """Read another raster that must lie on the landscape's grid (mortality, ...), once per run."""
         key = str(path)
         if key not in self._aligned:
-            self._aligned[key] = read_aligned(self._input(path), self.grid, what=what)
+            self._aligned[key] = read_aligned(self._input(path), self.grid, what=what,
+                                              align=self._align.get(key), record=self.alignments)
         return self._aligned[key]
 
     def read_landscape_like(self, path, key):
@@ -167,7 +181,8 @@ class RunContext:
         from ..graph import cell_edges
         land = self.study.settings["landscape"]
         with self.timed("least-cost search"):
-            edges = cell_edges(self.grid, kind=self.kind, neighbours=land["neighbours"], edge_rule=land["edge_rule"])
+            edges = cell_edges(self.grid, kind=self.kind, neighbours=land["neighbours"], edge_rule=land["edge_rule"],
+                                     values_per=land["values_per"])
             return least_cost(self.graph, edges)
 
     @cached_property
@@ -259,12 +274,13 @@ class RunContext:
         path = self._record(name, description, units)
         path.parent.mkdir(parents=True, exist_ok=True)
         array = self.graph.to_raster(values) if per_node else values
-        write_geotiff(path, array, self.grid)
+        write_geotiff(path, array, self.grid, description=description, units=units)
         return array
 
     def write_table(self, name, table, *, description, units="see docs/outputs.md", **kwargs):
         path = self._record(name, description, units)
-        write_csv(path, table, **kwargs)
+        self.tables[name] = table
+        write_csv(path, with_patch_names(table, self.patches.names), **kwargs)
 
     def quicklook(self, name, array, *, title, units, log_scale=True, categorical=False, kind=None,
                   backdrop=False, marks=None, mark_label="landscape changed here", class_names=None,
@@ -287,6 +303,30 @@ class RunContext:
                   patches=self.patches.labels, patch_names=getattr(self.patches, "names", None),
                   landscape=self.graph.node_of_cell >= 0, backdrop=resistance, marks=marks,
                   mark_label=mark_label, class_names=class_names, class_colours=class_colours)
+
+
+#: Table columns that hold patch ids; with text ids each gets a ``<column>_name`` column beside it.
+PATCH_COLUMNS = ("patch", "patch_a", "patch_b", "release_patch", "arrival_patch")
+
+
+def with_patch_names(table, names):
+    """``table`` with the text id of each patch beside every patch-id column (and index), when ids are text."""
+    if not names:
+        return table
+    table = table.copy()
+    lookup = {int(k): v for k, v in names.items()}
+
+    def name(value):
+        try:
+            return lookup.get(int(value), "")
+        except (TypeError, ValueError):
+            return ""
+    if table.index.name in PATCH_COLUMNS:
+        table.index = table.index.map(name).rename(f"{table.index.name}_name")
+        table.columns = [name(c) if isinstance(c, (int, np.integer)) else c for c in table.columns]
+    for col in [c for c in table.columns if c in PATCH_COLUMNS]:
+        table.insert(table.columns.get_loc(col) + 1, f"{col}_name", table[col].map(name))
+    return table
 
 
 def file_sha256(path):
@@ -439,6 +479,10 @@ def run_study(study):
                 ANALYSES[name].run(ctx, settings)
             ctx.summary_keys[name] = [k for k in ctx.summary if k not in before]
         ctx.step = None
+        if study.settings["output"]["map_layers"]:
+            from .vector_layers import write_vector_layers
+            with ctx.timed("vector layers"):
+                write_vector_layers(ctx)
         manifest = _manifest(ctx, time.perf_counter() - started, run_id=out.run_id)
         from ..report import write_reports
         write_reports(out.staging, manifest)
@@ -513,9 +557,14 @@ def _manifest(ctx, seconds, run_id=None):
         "sweep": dict(ctx.study.variation) or None,
         "landscape": {"rows": graph.shape[0], "cols": graph.shape[1],
                       "cell_size": list(ctx.grid.cell_size),
+                      "cell_size_metres": [round(v, 6) for v in ctx.grid.cell_size_metres()],
+                      "geographic": ctx.grid.is_geographic,
                       "crs": ctx.grid.crs.to_string() if ctx.grid.crs else None,
                       "cells": graph.n_cells, "nodes": graph.n_nodes, "edges": graph.n_edges,
-                      "patches": [int(p) for p in graph.patch_ids], "pieces": graph.n_pieces},
+                      "patches": [int(p) for p in graph.patch_ids], "pieces": graph.n_pieces,
+                      **({"patch_names": {str(int(p)): ctx.patches.name_of(p) for p in graph.patch_ids}}
+                         if ctx.patches.names else {})},
+        "alignment": ctx.alignments,
         "solvers": solvers,
         "outputs": outputs,
         "summary": ctx.summary,

@@ -16,22 +16,26 @@ def _grid(tif, shape, *, cell=(25.0, 30.0), nodata=-1.0):
     return read_grid(tif("in.tif", values, nodata=nodata, cell=cell)), values
 
 
-@pytest.mark.parametrize("shape, tiled", [((7, 9), False), ((300, 280), True)])
-def test_round_trip_keeps_georeference_nodata_and_values(tmp_path, tif, shape, tiled):
+@pytest.mark.parametrize("shape, overviews", [((7, 9), []), ((600, 520), [2, 4])])
+def test_round_trip_keeps_georeference_nodata_and_values(tmp_path, tif, shape, overviews):
+    """The output is a Cloud-Optimized GeoTIFF as GDAL itself reports it (IMAGE_STRUCTURE LAYOUT=COG)."""
     grid, values = _grid(tif, shape)
     assert not grid.mask[0, 0] and grid.mask.sum() == values.size - 1
     out = np.where(grid.mask, grid.values * 3.0, np.nan)
-    write_geotiff(tmp_path / "out.tif", out, grid)
+    write_geotiff(tmp_path / "out.tif", out, grid, description="three times the input", units="A")
     with rasterio.open(tmp_path / "out.tif") as src:
+        structure = src.tags(ns="IMAGE_STRUCTURE")
+        assert structure["LAYOUT"] == "COG" and structure["PREDICTOR"] == "3"
+        assert src.overviews(1) == overviews      # down to one 256 x 256 tile
+        assert src.descriptions == ("three times the input",)
+        assert src.units == ("A",) and src.tags(1)["units"] == "A"
         assert src.crs == rasterio.crs.CRS.from_epsg(3035)
         assert src.transform == grid.transform == Affine(25.0, 0, 4_321_000.0, 0, -30.0, 3_210_000.0)
         assert src.nodata == NODATA
         assert src.dtypes == ("float32",)
         assert src.count == 1 and src.shape == shape
         assert src.profile["compress"] == "deflate"
-        assert src.profile.get("tiled", False) == tiled
-        if tiled:
-            assert src.block_shapes == [(256, 256)]
+        assert src.profile["tiled"] and src.block_shapes == [(256, 256)]
         data = src.read(1)
     np.testing.assert_array_equal(data[~grid.mask], NODATA)
     np.testing.assert_array_equal(data[grid.mask], out[grid.mask].astype("float32"))
@@ -99,9 +103,10 @@ def test_write_is_atomic(tmp_path, tif, monkeypatch):
 def test_profile_overlay_without_nodata_keeps_nan(tmp_path, tif):
     grid, _ = _grid(tif, (5, 6))
     out = np.where(grid.mask, 1.0, np.nan)
-    write_geotiff(tmp_path / "out.tif", out, grid, nodata=None, compress="lzw")
+    write_geotiff(tmp_path / "out.tif", out, grid, nodata=None, compress="zstd")
     with rasterio.open(tmp_path / "out.tif") as src:
-        assert src.nodata is None and src.profile["compress"] == "lzw"
+        assert src.nodata is None and src.profile["compress"] == "zstd"
+        assert src.tags(ns="IMAGE_STRUCTURE")["LAYOUT"] == "COG"
         data = src.read(1)
     assert np.isnan(data[0, 0]) and (data[grid.mask] == 1.0).all()
 
@@ -117,3 +122,16 @@ def test_read_aligned_accepts_the_same_grid(tif):
     grid, values = _grid(tif, (4, 5))
     other = read_aligned(tif("other.tif", values * 2, nodata=-1.0, cell=(25.0, 30.0)), grid)
     assert other.same_grid(grid) is None
+
+
+def test_write_cog_writes_whole_numbers_without_a_float_predictor(tmp_path):
+    """write_cog is the writer for any grid (tiles of a regional run too): integers keep predictor off."""
+    labels = np.arange(300 * 270, dtype=np.int32).reshape(300, 270) % 7
+    transform = Affine(5.0, 0, 600_000.0, 0, -5.0, 5_000_000.0)
+    rasters.write_cog(tmp_path / "labels.tif", labels, transform=transform, crs="EPSG:32633", dtype="uint8",
+                      nodata=255, resampling="nearest", description="class")
+    with rasterio.open(tmp_path / "labels.tif") as src:
+        assert src.tags(ns="IMAGE_STRUCTURE")["LAYOUT"] == "COG" and src.dtypes == ("uint8",)
+        assert src.overviews(1) == [2] and src.transform == transform
+        np.testing.assert_array_equal(src.read(1), labels)
+        assert set(np.unique(src.read(1, out_shape=(150, 135)))) <= set(range(7))   # nearest: no new classes

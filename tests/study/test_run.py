@@ -60,8 +60,8 @@ def test_rerun_gives_identical_numbers(points_study, tmp_path):
 
 
 def test_weight_column_needs_points(study):
-    with pytest.raises(lf.ConfigError, match=r"'patches\.weight_column' only applies to patch points; with a "
-                                             r"patch raster use 'patches\.weight_raster'"):
+    with pytest.raises(lf.ConfigError, match=r"'patches\.weight_column' only applies to patch points or "
+                                             r"features; with a patch raster use 'patches\.weight_raster'"):
         lf.run_study(study(patches='raster = "patches.tif"\nweight_column = "adults"'))
     with pytest.raises(lf.ConfigError, match=r"'patches\.weight_column' only applies to patch points"):
         load_study(study(patches='raster = "patches.tif"\nweight_column = "adults"'))   # before any input is read

@@ -14,9 +14,16 @@ SETTINGS = Section({}, "Effective resistance between every pair of patches, with
 def run(ctx, settings):
     voltages = ctx.voltages
     matrix = effective_resistance(voltages)
-    ctx.write_table("effective_resistance.csv", resistance_table(voltages, matrix),
+    table = resistance_table(voltages, matrix)
+    width, height = ctx.grid.cell_size_metres()
+    per = ctx.study.settings["landscape"]["values_per"]
+    table["cell_width"], table["cell_height"], table["values_per"] = width, height, per   # R depends on them
+    ctx.write_table("effective_resistance.csv", table,
                     description="one row per patch pair: effective resistance, escape probability each way, "
-                                "commute time", units="resistance x map unit; probability; steps")
+                                "commute time, and the cell size and reading of the values the resistance "
+                                "depends on", units="resistance x map unit (per length) or resistance (per "
+                                                    "square); probability; steps; cell size in metres (map units "
+                                                    "when the CRS is projected)")
     ids = [int(p) for p in ctx.graph.patch_ids]
     square = pd.DataFrame(matrix, index=pd.Index(ids, name="patch"), columns=ids)
     ctx.write_table("effective_resistance_matrix.csv", square, index=True,
@@ -26,4 +33,6 @@ def run(ctx, settings):
     finite = finite[np.isfinite(finite)]
     if finite.size:
         ctx.summary["effective resistance (min / median / max)"] = (
-            f"{finite.min():.4g} / {np.median(finite):.4g} / {finite.max():.4g} resistance x map unit")
+            f"{finite.min():.4g} / {np.median(finite):.4g} / {finite.max():.4g} on cells of {width:.4g} x "
+            f"{height:.4g} {'m' if ctx.grid.is_geographic else 'map units'}, values read per {per}"
+            + (" (these numbers scale with the cell size; see docs/method.md)" if per == "length" else ""))

@@ -46,7 +46,7 @@ def run(ctx, settings):
     grid = _changed_grid(ctx, settings)
     try:
         graph = build_graph(grid, ctx.patches.labels, kind=ctx.kind, neighbours=land["neighbours"],
-                            edge_rule=land["edge_rule"])
+                            edge_rule=land["edge_rule"], values_per=land["values_per"])
     except InputError as exc:
         raise InputError(f"{ctx.study.path or 'study'}: '{_KEY}': {exc}") from None
     after = patch_voltages(graph, method=solver["method"], tolerance=solver["tolerance"], progress=log.info)
