@@ -274,13 +274,15 @@ class RunContext:
         path = self._record(name, description, units)
         path.parent.mkdir(parents=True, exist_ok=True)
         array = self.graph.to_raster(values) if per_node else values
-        write_geotiff(path, array, self.grid, description=description, units=units)
+        with _naming_the_output(name):
+            write_geotiff(path, array, self.grid, description=description, units=units)
         return array
 
     def write_table(self, name, table, *, description, units="see docs/outputs.md", **kwargs):
         path = self._record(name, description, units)
         self.tables[name] = table
-        write_csv(path, with_patch_names(table, self.patches.names), **kwargs)
+        with _naming_the_output(name):
+            write_csv(path, with_patch_names(table, self.patches.names), **kwargs)
 
     def quicklook(self, name, array, *, title, units, log_scale=True, categorical=False, kind=None,
                   backdrop=False, marks=None, mark_label="landscape changed here", class_names=None,
@@ -327,6 +329,17 @@ def with_patch_names(table, names):
     for col in [c for c in table.columns if c in PATCH_COLUMNS]:
         table.insert(table.columns.get_loc(col) + 1, f"{col}_name", table[col].map(name))
     return table
+
+
+@contextmanager
+def _naming_the_output(name):
+    """Re-raise a failed write (disk full, GDAL's bare "Write failed") naming the output and the fix."""
+    try:
+        yield
+    except OSError as exc:
+        reason = exc.strerror or str(exc) or type(exc).__name__
+        raise OSError(exc.errno, f"could not write the output {name}: {reason}. Free space on the output folder's "
+                      "disk (or check its permissions) and run again; the earlier results are untouched") from None
 
 
 def file_sha256(path):

@@ -359,3 +359,18 @@ def test_batch_workers_end_when_the_batch_process_is_killed(tmp_path):
         time.sleep(0.05)
     assert not any(_alive(w) for w in workers)
     assert not list((tmp_path / "results").glob(".landflow-staging-*"))    # the worker cleaned up on its way out
+
+
+def test_a_full_disk_is_reported_naming_the_output_and_the_fix(landscape, monkeypatch):
+    # GDAL reports a failed write as "Write failed" with no file name; the run names the output
+    from rasterio.errors import RasterioIOError
+    from landflow.study import run as run_module
+
+    def full(*args, **kwargs):
+        raise RasterioIOError("Write failed")
+    monkeypatch.setattr(run_module, "write_geotiff", full)
+    study = few_study(landscape / "s.toml", extra="[analyses.current_density]")
+    with pytest.raises(OSError, match=r"could not write the output current_density\.tif: Write failed\. Free "
+                                      r"space on the output folder's disk"):
+        lf.run_study(study)
+    assert not (landscape / "results").exists()          # nothing half-written where the outputs would be
