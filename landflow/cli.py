@@ -4,11 +4,11 @@ from __future__ import annotations
 
 import argparse
 import logging
-import signal
 import sys
 from pathlib import Path
 
 from . import __version__
+from . import interrupt
 from .errors import LandflowError
 
 
@@ -74,14 +74,6 @@ def _batch(args, studies, workers):
     return 1 if failed else 0
 
 
-class _Terminated(BaseException):
-    """SIGTERM, raised where the program is so that every run cleans up as on Ctrl-C."""
-
-
-def _on_sigterm(signum, frame):
-    raise _Terminated()
-
-
 def main(argv=None):
     """The ``landflow`` command. Exit codes: 0 done, 1 failed, 2 usage, 130 interrupted, 143 terminated."""
     parser = _parser()
@@ -93,14 +85,14 @@ def main(argv=None):
     logging.basicConfig(level=level, format="%(asctime)s %(levelname)s %(message)s", datefmt="%H:%M:%S",
                         stream=sys.stderr)
     logging.getLogger("landflow").setLevel(level)
-    previous = signal.signal(signal.SIGTERM, _on_sigterm)
+    restore = interrupt.install()
     try:
         return _dispatch(args)
     except KeyboardInterrupt:
         print("landflow: interrupted; unfinished outputs were removed and earlier results left as they were.",
               file=sys.stderr)
         return 130
-    except _Terminated:
+    except interrupt.Terminated:
         print("landflow: terminated; unfinished outputs were removed and earlier results left as they were.",
               file=sys.stderr)
         return 143
@@ -118,7 +110,7 @@ def main(argv=None):
               "full traceback, and please report it)", file=sys.stderr)
         return 1
     finally:
-        signal.signal(signal.SIGTERM, previous)
+        restore()
 
 
 def _open_page(page):

@@ -106,3 +106,26 @@ def test_version(demo_run):
     *_, version = demo_run
     assert version.returncode == 0
     assert version.stdout.strip() == f"landflow {lf.__version__}"
+
+
+def test_a_stop_whose_exception_was_dropped_is_raised_at_the_next_checkpoint():
+    # Python drops an exception raised while C code calls back into Python ("Exception ignored"); the
+    # signal is remembered, so the run's next checkpoint stops it all the same
+    import os
+    import signal
+
+    from landflow import interrupt
+    restore = interrupt.install()
+    try:
+        try:
+            os.kill(os.getpid(), signal.SIGTERM)
+            for _ in range(1000):        # the handler runs at a bytecode boundary in here
+                pass
+        except interrupt.Terminated:
+            pass                          # dropped, as a C callback would drop it
+        with pytest.raises(interrupt.Terminated):
+            interrupt.check()
+    finally:
+        restore()
+    interrupt.install()()                 # a fresh install forgets the old request
+    interrupt.check()

@@ -17,7 +17,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .. import __version__
+from .. import __version__, interrupt
 from ..errors import ConfigError, InputError
 from ..graph import build_graph
 from ..grid import Grid
@@ -265,6 +265,7 @@ class RunContext:
         return _Timer(self.timings, name, self.stages, self._started)
 
     def _record(self, name, description, units):
+        interrupt.check()
         self.outputs.append({"file": name, "description": description, "units": units,
                              **({"analysis": self.step} if self.step else {})})
         return self.folder / name
@@ -502,6 +503,7 @@ def run_study(study):
         with open(out.staging / "manifest.json", "w", encoding="utf-8") as fh:
             json.dump(manifest, fh, indent=2, sort_keys=False)
             fh.write("\n")
+        interrupt.check()
         out.commit([item["file"] for item in manifest["outputs"]] + ["manifest.json"])
     final = out.folder
     manifest["folder"] = str(final)
