@@ -9,14 +9,13 @@ inline SVG), needs no network, reads on a phone and prints on A4.
 from __future__ import annotations
 
 import base64
-import hashlib
 import json
 from pathlib import Path
 
 import numpy as np
 
 from .errors import InputError
-from .io._atomic import atomic_path
+from .io._atomic import atomic_path, sha256_of
 
 __all__ = ["write_report", "write_reports", "build_html", "rebuild_reports", "REPORT_FILES"]
 
@@ -62,14 +61,6 @@ def write_report(path, manifest, caution=None):
         tmp.write_text("\n".join(lines), encoding="utf-8")
 
 
-def _sha256(path):
-    digest = hashlib.sha256()
-    with open(path, "rb") as fh:
-        for chunk in iter(lambda: fh.read(1 << 20), b""):
-            digest.update(chunk)
-    return digest.hexdigest()
-
-
 def write_reports(folder, manifest):
     """Write ``report.md`` and ``report.html`` into ``folder`` and list them, with hashes, in ``manifest``."""
     folder = Path(folder)
@@ -80,7 +71,7 @@ def write_reports(folder, manifest):
         tmp.write_text(page, encoding="utf-8")
     for name in REPORT_FILES:
         manifest["outputs"].append({"file": name, "description": _DESCRIPTIONS[name], "units": "",
-                                    "sha256": _sha256(folder / name)})
+                                    "sha256": sha256_of(folder / name)})
     return folder / "report.html"
 
 

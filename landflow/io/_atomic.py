@@ -1,6 +1,7 @@
-"""Write files so that a failure never leaves a half-written one under the final name."""
+"""Write files so that a failure never leaves a half-written one under the final name; hash files."""
 
 import contextlib
+import hashlib
 import os
 from pathlib import Path
 
@@ -16,3 +17,12 @@ def atomic_path(path):
     finally:
         if tmp.exists():
             tmp.unlink()
+
+
+def sha256_of(path):
+    """The SHA-256 of a file's bytes as hex, read in 1 MB chunks."""
+    digest = hashlib.sha256()
+    with open(path, "rb") as fh:
+        for chunk in iter(lambda: fh.read(1 << 20), b""):
+            digest.update(chunk)
+    return digest.hexdigest()

@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import hashlib
 import json
 import logging
 import os
@@ -21,6 +20,7 @@ from .. import __version__, interrupt
 from ..errors import ConfigError, InputError
 from ..graph import build_graph
 from ..grid import Grid
+from ..io._atomic import sha256_of
 from ..io.rasters import read_aligned, read_grid, write_geotiff
 from ..io.sites import patch_weight_from_raster, read_patch_points, read_patch_raster
 from ..io.tables import write_csv
@@ -347,11 +347,7 @@ def file_sha256(path):
     """The SHA-256 of a file's bytes as hex, read in 1 MB chunks (the manifest's input hashes)."""
     if not Path(path).is_file():
         raise InputError(f"{path}: not a regular file (a folder, device or pipe); give the path of a file.")
-    digest = hashlib.sha256()
-    with open(path, "rb") as fh:
-        for chunk in iter(lambda: fh.read(1 << 20), b""):
-            digest.update(chunk)
-    return digest.hexdigest()
+    return sha256_of(path)
 
 
 def _grid_from_suitability(grid, land):
