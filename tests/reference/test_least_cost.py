@@ -55,7 +55,7 @@ def test_two_patches_equal_scipy_dijkstra_on_hand_built_graph(rule, neighbours):
     result = least_cost(graph, cell_edges(grid, neighbours=neighbours, edge_rule=rule))
     i, j, cost = zip(*hand_cost_edges(values, np.isfinite(values), neighbours, cell, rule))
     n = values.size
-    matrix = sp.coo_array((cost, (i, j)), shape=(n, n)).tocsr()
+    matrix = sp.coo_array((cost, (np.asarray(i, np.int32), np.asarray(j, np.int32))), shape=(n, n)).tocsr()
     sources = np.flatnonzero(labels.ravel() == 1)
     dist = dijkstra(matrix, directed=False, indices=sources.astype(np.int32), min_only=True)  # 32-bit: scipy 1.12
     expected = dist[labels.ravel() == 2].min()
