@@ -247,6 +247,59 @@ def test_a_crash_at_each_rename_is_repaired_by_the_next_check(landscape):
     assert outcomes == ["old"] * renames + ["new", "new"]
 
 
+HELD = """
+import os, signal, sys, threading, time
+from pathlib import Path
+from landflow.study import folder
+
+
+class Stop(BaseException):
+    pass
+
+
+def stop(signum, frame):
+    raise Stop()
+
+
+signal.signal(signal.SIGTERM, stop)
+threading.Thread(target=time.sleep, args=(30,), daemon=True).start()   # as BLAS or Dask threads would be
+real_move, moves = folder._move, []
+
+
+def move(src, dst):
+    moves.append(dst.name)
+    if len(moves) == 1:
+        os.kill(os.getpid(), signal.SIGTERM)
+        time.sleep(0.05)            # ample time for the handler to run if nothing held it back
+    real_move(src, dst)
+
+
+folder._move = move
+out_folder = Path(sys.argv[1])
+try:
+    with folder.OutputFolder(out_folder) as out:
+        names = ["a.txt", "b.txt", "manifest.json"]
+        for name in names[:2]:
+            (out.staging / name).write_text(name)
+        (out.staging / "manifest.json").write_text('{"landflow_version": "0", "outputs": [{"file": "a.txt"}, '
+                                                   '{"file": "b.txt"}]}')
+        out.commit(names)
+except Stop:
+    print("stopped after", moves, sorted(p.name for p in out_folder.iterdir()))
+"""
+
+
+def test_sigterm_during_a_commit_waits_for_its_end_even_with_other_threads(tmp_path):
+    """A signal mask alone does not hold a signal back when another thread exists (Python runs the handler
+    in the main thread whichever thread received it); the commit must still finish first."""
+    env = {"PYTHONPATH": str(ROOT), "PATH": "/usr/bin:/bin"}
+    result = subprocess.run([sys.executable, "-c", HELD, str(tmp_path / "out")], env=env, capture_output=True,
+                            text=True, timeout=60)
+    assert result.returncode == 0, result.stderr
+    assert result.stdout.strip() == "stopped after ['a.txt', 'b.txt', 'manifest.json'] " \
+                                    "['a.txt', 'b.txt', 'manifest.json']"
+
+
 # -- real runs stopped from outside ------------------------------------------------------------------------------
 def slow_landscape(folder):
     rng = np.random.default_rng(7)
@@ -327,3 +380,36 @@ def test_verify_finds_edited_and_deleted_outputs(landscape):
     assert "changed since the run: report.md" in bad.stderr
     assert "missing: effective_resistance_matrix.csv" in bad.stderr
     assert not is_up_to_date(load_study(study))
+
+
+def test_batch_workers_end_with_the_batch_and_clean_up(tmp_path):
+    """SIGKILL the batch process while its two workers are writing: the workers must not run on as orphans,
+    and each removes its unfinished outputs, leaving nothing for the next run to repair."""
+    psutil = pytest.importorskip("psutil")
+    studies = []
+    for name in ("a", "b"):
+        (tmp_path / name).mkdir()
+        studies.append(slow_landscape(tmp_path / name))
+    env = {"PYTHONPATH": str(ROOT), "PATH": "/usr/bin:/bin", "HOME": str(tmp_path)}
+    batch = subprocess.Popen([sys.executable, "-m", "landflow", "batch", "--workers", "2", "--summary",
+                              str(tmp_path / "summary.csv"), *map(str, studies)], env=env,
+                             stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True)
+    deadline = time.monotonic() + 90
+    while not all(list((tmp_path / n / "results").glob(".landflow-staging-*")) if (tmp_path / n / "results").exists()
+                  else False for n in "ab"):
+        assert batch.poll() is None, batch.stderr.read()
+        assert time.monotonic() < deadline, "the runs never started writing"
+        time.sleep(0.005)
+    workers = [p for p in psutil.Process(batch.pid).children(recursive=True)]
+    assert len(workers) >= 2
+    os.kill(batch.pid, signal.SIGKILL)
+    batch.wait()
+    gone, alive = psutil.wait_procs(workers, timeout=20)
+    for p in alive:
+        p.kill()
+    assert not alive, "batch workers ran on after the batch process died"
+    for name in "ab":
+        left = [p.name for p in (tmp_path / name / "results").iterdir()] if (tmp_path / name / "results").exists() \
+            else []
+        assert not [n for n in left if n.startswith(".landflow-staging")], left
+        assert "manifest.json" not in left
