@@ -43,6 +43,7 @@ import logging
 import os
 import shutil
 import signal
+import threading
 import uuid
 from contextlib import contextmanager
 from pathlib import Path
@@ -117,13 +118,28 @@ def check_output_folder(folder, *, protected=(), source="study", key="output.fol
 
 @contextmanager
 def _signals_held():
-    """Hold back SIGINT and SIGTERM for the block (delivered when it ends)."""
-    held = {signal.SIGINT, signal.SIGTERM}
-    old = signal.pthread_sigmask(signal.SIG_BLOCK, held)
+    """Hold back SIGINT and SIGTERM for the block; a signal that came meanwhile is acted on when it ends.
+
+    Python runs signal handlers in the main thread whichever thread the kernel
+    delivered the signal to (BLAS and Dask threads do not block signals), so
+    blocking them with a signal mask is not enough: the block swaps the Python
+    handlers for one that only records the signal, and afterwards puts them
+    back and re-raises what was recorded. Outside the main thread (a Dask
+    worker thread) handlers cannot be changed, but neither do they run there.
+    """
+    if threading.current_thread() is not threading.main_thread():
+        yield
+        return
+    caught = []
+    held = (signal.SIGINT, signal.SIGTERM)
+    previous = {s: signal.signal(s, lambda signum, frame: caught.append(signum)) for s in held}
     try:
         yield
     finally:
-        signal.pthread_sigmask(signal.SIG_SETMASK, old)
+        for s, handler in previous.items():
+            signal.signal(s, signal.SIG_DFL if handler is None else handler)
+        for signum in dict.fromkeys(caught):
+            signal.raise_signal(signum)
 
 
 def _write_json(path, data):

@@ -247,6 +247,59 @@ def test_a_crash_at_each_rename_is_repaired_by_the_next_check(landscape):
     assert outcomes == ["old"] * renames + ["new", "new"]
 
 
+HELD = """
+import os, signal, sys, threading, time
+from pathlib import Path
+from landflow.study import folder
+
+
+class Stop(BaseException):
+    pass
+
+
+def stop(signum, frame):
+    raise Stop()
+
+
+signal.signal(signal.SIGTERM, stop)
+threading.Thread(target=time.sleep, args=(30,), daemon=True).start()   # as BLAS or Dask threads would be
+real_move, moves = folder._move, []
+
+
+def move(src, dst):
+    moves.append(dst.name)
+    if len(moves) == 1:
+        os.kill(os.getpid(), signal.SIGTERM)
+        time.sleep(0.05)            # ample time for the handler to run if nothing held it back
+    real_move(src, dst)
+
+
+folder._move = move
+out_folder = Path(sys.argv[1])
+try:
+    with folder.OutputFolder(out_folder) as out:
+        names = ["a.txt", "b.txt", "manifest.json"]
+        for name in names[:2]:
+            (out.staging / name).write_text(name)
+        (out.staging / "manifest.json").write_text('{"landflow_version": "0", "outputs": [{"file": "a.txt"}, '
+                                                   '{"file": "b.txt"}]}')
+        out.commit(names)
+except Stop:
+    print("stopped after", moves, sorted(p.name for p in out_folder.iterdir()))
+"""
+
+
+def test_sigterm_during_a_commit_waits_for_its_end_even_with_other_threads(tmp_path):
+    """A signal mask alone does not hold a signal back when another thread exists (Python runs the handler
+    in the main thread whichever thread received it); the commit must still finish first."""
+    env = {"PYTHONPATH": str(ROOT), "PATH": "/usr/bin:/bin"}
+    result = subprocess.run([sys.executable, "-c", HELD, str(tmp_path / "out")], env=env, capture_output=True,
+                            text=True, timeout=60)
+    assert result.returncode == 0, result.stderr
+    assert result.stdout.strip() == "stopped after ['a.txt', 'b.txt', 'manifest.json'] " \
+                                    "['a.txt', 'b.txt', 'manifest.json']"
+
+
 # -- real runs stopped from outside ------------------------------------------------------------------------------
 def slow_landscape(folder):
     rng = np.random.default_rng(7)
