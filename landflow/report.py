@@ -27,21 +27,12 @@ _DESCRIPTIONS = {"report.md": "a plain-text account of the run", "report.html": 
 # -- plain text --------------------------------------------------------------------------------------------
 def write_report(path, manifest, caution=None):
     """A short Markdown account of a run: inputs, key numbers with units, outputs, warnings and the caution."""
-    land = manifest["landscape"]
     caution = caution or manifest.get("caution", "")
     lines = [
         "# landflow run report", "",
         f"landflow {manifest['landflow_version']}; study file: {manifest['study_file'] or '(from Python)'}", "",
         "## Caution", "", caution, "",
-        "## Landscape", "",
-        f"- {land['rows']} x {land['cols']} cells of {land['cell_size'][0]:g} x {land['cell_size'][1]:g} map units"
-        + (f" (about {land['cell_size_metres'][0]:.4g} x {land['cell_size_metres'][1]:.4g} m mid-grid)"
-           if land.get("geographic") else "") + f", CRS {land['crs'] or 'none'}",
-        f"- values read per {manifest['settings']['landscape'].get('values_per', 'length')}: effective resistance "
-        + ("scales with the cell size (docs/method.md, 'Units and resolution')"
-           if manifest['settings']['landscape'].get('values_per', 'length') == 'length'
-           else "does not depend on the cell size (resistance per square of a sheet)"),
-        f"- {land['cells']:,} cells in the landscape, {len(land['patches'])} patches, {land['pieces']} connected piece(s)",
+        *_landscape_lines(manifest),
     ]
     for solver in manifest["solvers"]:
         lines.append(f"- solver for {solver.get('purpose', 'the run')}: {solver['method']}, {solver['unknowns']:,} unknowns, "
@@ -59,6 +50,28 @@ def write_report(path, manifest, caution=None):
               "manifest.json holds the settings, input hashes and versions needed to rerun this study.", ""]
     with atomic_path(path) as tmp:
         tmp.write_text("\n".join(lines), encoding="utf-8")
+
+
+def _landscape_lines(manifest):
+    """The report's account of the landscape (a raster's cells, or a network's nodes and edges)."""
+    land = manifest["landscape"]
+    if land.get("network"):
+        zones = list((land.get("patch_names") or {}).values()) or land["patches"]
+        return ["## Network", "",
+                f"- {land['network_nodes']:,} nodes and {land['network_edges']:,} edges from {land['source']}, "
+                f"CRS {land['crs'] or 'none'}",
+                f"- {len(land['patches'])} zones ({', '.join(map(str, zones))}), {land['pieces']} connected piece(s); "
+                "effective resistance is in the edges' own resistance unit"]
+    return ["## Landscape", "",
+            f"- {land['rows']} x {land['cols']} cells of {land['cell_size'][0]:g} x {land['cell_size'][1]:g} map units"
+            + (f" (about {land['cell_size_metres'][0]:.4g} x {land['cell_size_metres'][1]:.4g} m mid-grid)"
+               if land.get("geographic") else "") + f", CRS {land['crs'] or 'none'}",
+            f"- values read per {manifest['settings']['landscape'].get('values_per', 'length')}: effective resistance "
+            + ("scales with the cell size (docs/method.md, 'Units and resolution')"
+               if manifest['settings']['landscape'].get('values_per', 'length') == 'length'
+               else "does not depend on the cell size (resistance per square of a sheet)"),
+            f"- {land['cells']:,} cells in the landscape, {len(land['patches'])} patches, {land['pieces']} connected "
+            "piece(s)"]
 
 
 def write_reports(folder, manifest):

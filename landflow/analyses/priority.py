@@ -18,7 +18,7 @@ from .resistance import effective_resistance
 
 __all__ = [
     "pair_nodes", "check_connected_pairs", "objective_weights", "connectivity", "link_conductance", "corridor_ranking",
-    "Corridor", "corridor", "corridor_cells_table", "restoration_gain", "scenario_change",
+    "Corridor", "corridor", "corridor_cells_table", "restoration_gain", "edge_restoration_gain", "scenario_change",
 ]
 
 #: 1 - c R_ab below this counts as a bridge: losing the link splits the patches.
@@ -448,6 +448,48 @@ def restoration_gain(voltages, grid, weights, *, kind="resistance"):
             + np.bincount(edges.cell_j, s * dj, minlength=n_cells)).reshape(grid.shape)
     gain[graph.node_of_cell < 0] = np.nan
     return gain
+
+
+def edge_restoration_gain(voltages, weights, edges):
+    """First-order drop of a weighted sum of effective resistances per unit reduction of each edge's resistance.
+
+    With F = sum_{a<b} w_ab R_ab and dR_ab / dC_e = -(v_x - v_y)^2 for a unit
+    current from a to b (Ghosh, Boyd & Saberi 2008, "Minimizing effective
+    resistance of a graph", SIAM Review 50:37, doi:10.1137/050645452), an
+    edge of resistance r_e = 1 / C_e has gain = -dF / dr_e = C_e^2 s_e with
+    s_e = sum_ab w_ab (v_x - v_y)^2: the network counterpart of
+    :func:`restoration_gain`, for edges instead of cells. Never negative
+    (Rayleigh's monotonicity law).
+
+    Parameters
+    ----------
+    voltages : PatchVoltages
+    weights : ndarray (k, k)
+        Symmetric pair weights (:func:`objective_weights`).
+    edges : (i, j, c)
+        End nodes (of ``voltages.graph``) and conductance of each edge; an
+        edge inside a patch gets 0.
+
+    Returns
+    -------
+    ndarray, one value per edge: F's unit per resistance unit.
+
+    Examples
+    --------
+    Two edges in series between two zones: R = r_1 + r_2, so dR/dr_e = 1 each.
+
+    >>> import landflow as lf
+    >>> g = lf.network_graph([0, 1], [1, 2], [0.5, 0.25], zones=[1, 0, 2])
+    >>> v = lf.patch_voltages(g)
+    >>> edge_restoration_gain(v, lf.pair_weights(v), ([0, 2], [2, 1], [0.5, 0.25])).round(12)
+    array([1., 1.])
+    """
+    i, j, c = (np.asarray(a) for a in edges)
+    w = np.asarray(weights, dtype=float)
+    lap_w = np.diag(w.sum(axis=1)) - w
+    drop = voltages.potential[i] - voltages.potential[j]
+    s = np.maximum(np.einsum("ea,ab,eb->e", drop, lap_w, drop), 0.0)
+    return np.asarray(c, dtype=float) ** 2 * s
 
 
 def scenario_change(before, after, weights_before, weights_after):

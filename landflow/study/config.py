@@ -11,7 +11,7 @@ from ..analyses.suitability import TRANSFORMS
 from ..graph import EDGE_RULES, NEIGHBOURS, VALUES_PER
 from ..io.rasters import ALIGN_METHODS
 from ..solve import METHODS
-from .schema import Key, Section, close_match, validate_section
+from .schema import REQUIRED, Key, Section, close_match, validate_section
 
 __all__ = ["Study", "load_study", "read_study_file", "study_from_dict", "SECTIONS"]
 
@@ -59,8 +59,23 @@ def _patch_rules(patches):
 
 
 def _mortality_rules(mortality):
-    if mortality["raster"] is not None and mortality["death_per_resistance"] is not None:
-        return "has both 'raster' and 'death_per_resistance'; give one of them"
+    given = [k for k in ("raster", "death_per_resistance", "node_column", "edge_column") if mortality[k] is not None]
+    if len(given) > 1:
+        return f"has both '{given[0]}' and '{given[1]}'; give one of them"
+    return None
+
+
+def _network_rules(network):
+    if network["crs"] is not None and network["nodes"] is None:
+        return "'network.crs' gives the CRS of the node table's x and y; give 'network.nodes' or remove it"
+    return None
+
+
+def _zone_rules(zones):
+    if zones["features"] is None:
+        for key in ("layer", "id_column", "snap_distance", "weight_column"):
+            if zones[key] is not None:
+                return f"'zones.{key}' only applies to 'zones.features' (a vector file); remove it"
     return None
 
 
@@ -138,14 +153,64 @@ SECTIONS = {
                                         "sum", path="input", unit="weight per cell", example="population.tif"),
     }, "Habitat patches or sample sites.", exactly_one=(("raster", "points", "features"),), check=_patch_rules,
         renamed={"strength_column": "weight_column", "strength_raster": "weight_raster"}),
+    "network": Section({
+        "edges": Key(str, REQUIRED, "the network's edges: a vector file of lines (GeoPackage, Shapefile, GeoJSON, "
+                                    "FlatGeobuf; each line joins its two ends) or a CSV edge list (one row per "
+                                    "edge)", path="input", example="roads.gpkg"),
+        "layer": Key(str, None, "layer of 'edges' to read (needed when the file has several)"),
+        "nodes": Key(str, None, "CSV edge lists: a node table with 'id' (the ids the edge list uses), optional "
+                                "'x' and 'y' (map coordinates) and other columns (zone ids, mortality)",
+                     path="input", example="nodes.csv"),
+        "from_column": Key(str, "from", "CSV edge lists: the column naming each edge's first node"),
+        "to_column": Key(str, "to", "CSV edge lists: the column naming each edge's second node"),
+        "resistance_column": Key(str, None, "column holding each edge's resistance (> 0), such as a travel time",
+                                 example="minutes"),
+        "conductance_column": Key(str, None, "column holding each edge's conductance (1 / resistance, > 0)",
+                                  example="conductance"),
+        "resistance_per_length_column": Key(str, None, "column holding each edge's resistance per map unit of "
+                                                       "length, multiplied by the line's length (lines, or an edge "
+                                                       "list with node coordinates)", example="cost_per_m"),
+        "join_tolerance": Key(float, 0.0, "line ends closer than this are one node (0: only ends at exactly the "
+                                          "same coordinates)", check=_non_negative, unit="map units"),
+        "crs": Key(str, None, "CRS of the node table's x and y (a CSV carries none), such as 'EPSG:25832'",
+                   example="EPSG:25832"),
+        "one_way_column": Key(str, None, "column marking one-way links (1, -1, true or yes; 0, false, no or empty "
+                                         "for two-way); a one-way link is refused unless 'symmetrise_one_way'"),
+        "symmetrise_one_way": Key(bool, False, "read one-way links as two-way links of the same resistance; a link "
+                                               "given one way in each direction becomes one link of the mean "
+                                               "conductance of the two"),
+    }, "A network instead of a raster landscape (roads, rivers, habitat links): its edges and how each edge's "
+       "resistance is read. A study has either [landscape] and [patches] or [network] and [zones].",
+        exactly_one=(("resistance_column", "conductance_column", "resistance_per_length_column"),),
+        check=_network_rules),
+    "zones": Section({
+        "column": Key(str, None, "column of the node table ([network] nodes) holding each node's zone id "
+                                 "(whole numbers > 0 or text; 0 or empty for none)", example="town"),
+        "features": Key(str, None, "vector file of points (each snaps to the nearest node within "
+                                   "'snap_distance') or polygons (every node inside), in the network's CRS",
+                        path="input", example="towns.gpkg"),
+        "layer": Key(str, None, "layer of 'features' to read (needed when the file has several)"),
+        "id_column": Key(str, None, "column of 'features' holding each zone's id: whole numbers > 0 or text "
+                                    "(default 'id')"),
+        "snap_distance": Key(float, None, "how far a zone point may lie from its nearest node", check=_positive,
+                             unit="map units", example=50.0),
+        "weight_column": Key(str, None, "column of 'features' holding each zone's weight in the pair sum "
+                                        "(population, size)"),
+    }, "The network's zones (its patches: towns, habitat patches, sample sites); every zone's nodes are merged into "
+       "one node, as a patch's cells are.", exactly_one=(("column", "features"),), check=_zone_rules),
     "mortality": Section({
         "raster": Key(str, None, "raster of per-step death probability in [0, 1) on the landscape's grid; "
                                  "nodata = 0", path="input"),
         "death_per_resistance": Key(float, None, "instead of a raster: death probability per step "
                                                  "1 - exp(-value x resistance of the cell)", check=_non_negative,
                                     unit="1 / resistance unit"),
+        "node_column": Key(str, None, "network studies: column of the node table holding each node's per-step "
+                                      "death probability in [0, 1)", example="death"),
+        "edge_column": Key(str, None, "network studies: column of the edges holding the probability of dying "
+                                      "while crossing each edge, in [0, 1)", example="death"),
     }, "Optional death of walkers on the way, used by the absorbing-walk analyses. Give at most one key; "
-       "mortality on patch cells is ignored.", check=_mortality_rules),
+       "mortality on patch cells (zone nodes) is ignored. On a network, 'death_per_resistance' gives each edge "
+       "the death probability 1 - exp(-value x the edge's resistance) of crossing it.", check=_mortality_rules),
     "alignment": Section({
         key: Key(str, None, doc, choices=ALIGN_METHODS) for key, doc in ALIGNED_INPUTS.items()
     }, "Inputs on another grid or CRS than the landscape are refused unless named here; each named one is warped "
@@ -248,12 +313,23 @@ def study_from_dict(raw, *, base_dir=".", source="study", path=None):
     if "sweep" in raw:
         raise ConfigError(f"{source}: a [sweep] table cannot be validated as one study; expand it first "
                           "(landflow.study.sweep.expand_study).")
+    network = "network" in raw or "zones" in raw
+    required, other = (("network", "zones"), ("landscape", "patches")) if network else \
+        (("landscape", "patches"), ("network", "zones"))
+    both = [f"[{name}]" for name in other if name in raw]
+    if both:
+        raise ConfigError(f"{source}: the study has {' and '.join(both)} as well as [{required[0]}]; a study "
+                          "describes either a raster landscape ([landscape] and [patches]) or a network ([network] "
+                          "and [zones]). Remove one.")
     settings = {}
     for name, section in SECTIONS.items():
+        if name in other:
+            continue
         table = raw.get(name, {})
-        if name in ("landscape", "patches") and name not in raw:
+        if name in required and name not in raw:
             raise ConfigError(f"{source}: the study needs a [{name}] table ({section.doc}).")
         settings[name] = validate_section(table, section, name, base_dir, source)
+    _check_kind_of_study(settings, raw, network, source)
     wanted = raw.get("analyses", {})
     if not isinstance(wanted, dict) or not wanted:
         raise ConfigError(f"{source}: no analyses requested. Add a table such as [analyses.effective_resistance]; "
@@ -264,7 +340,12 @@ def study_from_dict(raw, *, base_dir=".", source="study", path=None):
                               f"Available: {', '.join(ANALYSES)}.")
     analyses = {name: validate_section(wanted[name], step.SETTINGS, f"analyses.{name}", base_dir, source)
                 for name, step in ANALYSES.items() if name in wanted}
-    for key, method in settings["alignment"].items():
+    for name in analyses if network else ():
+        reason = getattr(ANALYSES[name], "GRID_ONLY", None)
+        if reason:
+            raise ConfigError(f"{source}: [analyses.{name}] needs a raster landscape: {reason}. Remove it from this "
+                              "network study.")
+    for key, method in settings.get("alignment", {}).items():
         if method is None:
             continue
         where, name = ALIGNED_PATHS[key]
@@ -273,16 +354,38 @@ def study_from_dict(raw, *, base_dir=".", source="study", path=None):
             shown = f"[{where}]" if where in settings else f"[analyses.{where}]"
             raise ConfigError(f"{source}: 'alignment.{key}' is set but {shown} {name} is not given; remove the "
                               "alignment key or give that input.")
-    if settings["alignment"]["patch_raster"] == "mean":
+    if settings.get("alignment", {}).get("patch_raster") == "mean":
         raise ConfigError(f"{source}: 'alignment.patch_raster' = 'mean' would average patch labels; use 'nearest' "
                           "or 'mode'.")
     return Study(path, settings, analyses)
 
 
+def _check_kind_of_study(settings, raw, network, source):
+    """Keys that only apply to a raster study, or only to a network study."""
+    mortality = settings["mortality"]
+    if network:
+        if mortality["raster"] is not None:
+            raise ConfigError(f"{source}: 'mortality.raster' is a raster on a landscape's grid; on a network give "
+                              "'mortality.node_column', 'mortality.edge_column' or 'mortality.death_per_resistance'.")
+        if raw.get("alignment"):
+            raise ConfigError(f"{source}: [alignment] warps rasters onto a landscape's grid; a network study has no "
+                              "grid. Remove the [alignment] table.")
+    else:
+        for key in ("node_column", "edge_column"):
+            if mortality[key] is not None:
+                raise ConfigError(f"{source}: 'mortality.{key}' only applies to a network study; on a raster give "
+                                  "'mortality.raster' or 'mortality.death_per_resistance'.")
+
+
+def is_network(study):
+    """True for a study of a network ([network] and [zones]), False for a raster landscape."""
+    return "network" in study.settings
+
+
 def aligned_inputs(study):
     """``{input path as text: alignment method}`` of a study's [alignment] table."""
     out = {}
-    for key, method in study.settings["alignment"].items():
+    for key, method in study.settings.get("alignment", {}).items():
         if method is not None:
             where, name = ALIGNED_PATHS[key]
             table = study.settings.get(where, study.analyses.get(where)) or {}

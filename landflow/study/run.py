@@ -24,7 +24,7 @@ from ..io._atomic import sha256_of
 from ..io.rasters import read_aligned, read_grid, write_geotiff
 from ..io.sites import patch_weight_from_raster, read_patch_points, read_patch_raster
 from ..io.tables import write_csv
-from .config import Study, aligned_inputs, load_study
+from .config import Study, aligned_inputs, is_network, load_study
 from .folder import OutputFolder, check_output_folder, is_landflow_manifest
 
 __all__ = ["run_study", "check_study", "verify_folder", "protected_paths", "RunContext", "CAUTION"]
@@ -48,6 +48,8 @@ class RunContext:
     Steps write only through :meth:`write_raster`, :meth:`write_table` and
     :meth:`quicklook`, which record every output for the manifest.
     """
+
+    is_network = False
 
     def __init__(self, study, folder):
         self.study = study
@@ -145,6 +147,28 @@ class RunContext:
             self.warn("the landscape falls apart into pieces that no walk can cross; patches in different "
                       f"pieces have infinite effective resistance. Groups: {' | '.join(groups)}")
 
+    def where(self, row, col):
+        """How messages name a cell: row/col and map coordinates."""
+        return self.grid.where(row, col)
+
+    @property
+    def walk_graph(self):
+        """The graph the absorbing walk hops on (the circuit's own graph on a raster)."""
+        return self.graph
+
+    def landscape_record(self):
+        """The manifest's account of the landscape."""
+        graph = self.graph
+        return {"rows": graph.shape[0], "cols": graph.shape[1],
+                "cell_size": list(self.grid.cell_size),
+                "cell_size_metres": [round(v, 6) for v in self.grid.cell_size_metres()],
+                "geographic": self.grid.is_geographic,
+                "crs": self.grid.crs.to_string() if self.grid.crs else None,
+                "cells": graph.n_cells, "nodes": graph.n_nodes, "edges": graph.n_edges,
+                "patches": [int(p) for p in graph.patch_ids], "pieces": graph.n_pieces,
+                **({"patch_names": {str(int(p)): self.patches.name_of(p) for p in graph.patch_ids}}
+                   if self.patches.names else {})}
+
     @cached_property
     def patch_weight(self):
         """Per-patch weight in graph order, or None; warns once when every weight is 0."""
@@ -218,7 +242,7 @@ class RunContext:
         solver = self.study.settings["solver"]
         spec = self.study.settings.get("mortality") or {}
         with self.forward_warnings():
-            return absorbing_walk(self.graph, self.mortality, method=solver["method"], tolerance=solver["tolerance"],
+            return absorbing_walk(self.walk_graph, self.mortality, method=solver["method"], tolerance=solver["tolerance"],
                                   source=str(spec.get("raster") or "mortality"), where=self.grid.where)
 
     def _note_use(self, purpose):
@@ -392,13 +416,21 @@ def check_study(study):
     if folder.exists():
         with OutputFolder(folder, protected=protected_paths(study), source=_source(study), stage=False):
             pass
-    ctx = RunContext(study, study.output_folder)
+    ctx = make_context(study, study.output_folder)
     _check_steps(ctx)
     ctx.patch_weight  # reads the weights and warns, as a run does, when every one is 0
     graph = ctx.graph
     return {"cells": graph.n_cells, "nodes": graph.n_nodes,
             "patches": graph.n_patches, "pieces": graph.n_pieces,
             "analyses": list(study.analyses), "warnings": ctx.warnings}
+
+
+def make_context(study, folder):
+    """The run context of a study: a raster landscape's, or a network's (:mod:`landflow.study.network`)."""
+    if is_network(study):
+        from .network import NetworkContext
+        return NetworkContext(study, folder)
+    return RunContext(study, folder)
 
 
 def _source(study):
@@ -477,7 +509,7 @@ def run_study(study):
     _check_writable(study)
     started = time.perf_counter()
     with OutputFolder(study.output_folder, protected=protected_paths(study), source=_source(study)) as out:
-        ctx = RunContext(study, out.staging)
+        ctx = make_context(study, out.staging)
         _check_steps(ctx)
         if ctx.from_suitability:
             ctx.write_raster("resistance_from_suitability.tif", np.where(ctx.grid.mask, ctx.grid.values, np.nan),
@@ -489,7 +521,11 @@ def run_study(study):
                 ANALYSES[name].run(ctx, settings)
             ctx.summary_keys[name] = [k for k in ctx.summary if k not in before]
         ctx.step = None
-        if study.settings["output"]["map_layers"]:
+        if ctx.is_network:
+            from .network import write_network_outputs
+            with ctx.timed("network layers"):
+                write_network_outputs(ctx)
+        elif study.settings["output"]["map_layers"]:
             from .vector_layers import write_vector_layers
             with ctx.timed("vector layers"):
                 write_vector_layers(ctx)
@@ -552,7 +588,6 @@ def _manifest(ctx, seconds, run_id=None):
             versions[dep] = metadata.version(dep)
         except metadata.PackageNotFoundError:
             pass
-    graph = ctx.graph
     solvers = ctx.solver_records()
     base = ctx.study.path.parent if ctx.study.path else Path.cwd()
     outputs = [{**item, "sha256": file_sha256(ctx.folder / item["file"])} for item in ctx.outputs]
@@ -566,15 +601,7 @@ def _manifest(ctx, seconds, run_id=None):
         "inputs": [{"path": os.path.relpath(p, base), "sha256": h} for p, h in ctx.inputs.items()],
         "settings": ctx.study.resolved(),
         "sweep": dict(ctx.study.variation) or None,
-        "landscape": {"rows": graph.shape[0], "cols": graph.shape[1],
-                      "cell_size": list(ctx.grid.cell_size),
-                      "cell_size_metres": [round(v, 6) for v in ctx.grid.cell_size_metres()],
-                      "geographic": ctx.grid.is_geographic,
-                      "crs": ctx.grid.crs.to_string() if ctx.grid.crs else None,
-                      "cells": graph.n_cells, "nodes": graph.n_nodes, "edges": graph.n_edges,
-                      "patches": [int(p) for p in graph.patch_ids], "pieces": graph.n_pieces,
-                      **({"patch_names": {str(int(p)): ctx.patches.name_of(p) for p in graph.patch_ids}}
-                         if ctx.patches.names else {})},
+        "landscape": ctx.landscape_record(),
         "alignment": ctx.alignments,
         "solvers": solvers,
         "outputs": outputs,

@@ -22,6 +22,11 @@ SETTINGS = Section({
    "pinch_points.tif and corridor_cells.csv.")
 
 
+#: Why the analysis needs a grid: a network study refuses it with this reason.
+GRID_ONLY = ("corridor extents and pinch points are maps of cells; on a network, current_density gives the current "
+             "on every edge and restoration_gain ranks the edges")
+
+
 def check(ctx, settings):
     resolve_pairs(ctx, settings["pairs"], "analyses.corridor_maps.pairs")
 

@@ -2,7 +2,7 @@
 
 import logging
 
-from ...analyses.current import current_density, pair_current, pair_weights
+from ...analyses.current import current_density, edge_current_density, pair_current, pair_weights
 from ..schema import Key, Section
 from ._patch_settings import pair_map
 
@@ -36,6 +36,9 @@ def run(ctx, settings):
     units = "A (sum over pairs of unit currents" + (", weighted by patch-weight products)" if patch_weight is not None else ")")
     cells = ctx.write_raster("current_density.tif", flow, units=units,
                              description="current through each cell summed over all patch pairs")
+    if ctx.is_network:
+        ctx.write_edge_values("current_density", edge_current_density(voltages, weights, edges=ctx.merged_edges()),
+                              units=units, description="current along each edge summed over all zone pairs")
     ctx.quicklook("current_density.png", cells, title="Current summed over patch pairs", units=units)
     if not (settings["pair_current_maps"] or settings["pair_voltage_maps"]):
         return

@@ -15,6 +15,9 @@ def run(ctx, settings):
     voltages = ctx.voltages
     matrix = effective_resistance(voltages)
     table = resistance_table(voltages, matrix)
+    if ctx.is_network:
+        _write(ctx, matrix, table, "resistance unit (the edges' own)")
+        return
     width, height = ctx.grid.cell_size_metres()
     per = ctx.study.settings["landscape"]["values_per"]
     table["cell_width"], table["cell_height"], table["values_per"] = width, height, per   # R depends on them
@@ -24,11 +27,7 @@ def run(ctx, settings):
                                 "depends on", units="resistance x map unit (per length) or resistance (per "
                                                     "square); probability; steps; cell size in metres (map units "
                                                     "when the CRS is projected)")
-    ids = [int(p) for p in ctx.graph.patch_ids]
-    square = pd.DataFrame(matrix, index=pd.Index(ids, name="patch"), columns=ids)
-    ctx.write_table("effective_resistance_matrix.csv", square, index=True,
-                    description="square matrix of effective resistance between patches (inf: not connected)",
-                    units="resistance x map unit")
+    _write_matrix(ctx, matrix, "resistance x map unit")
     finite = matrix[np.triu_indices_from(matrix, 1)]
     finite = finite[np.isfinite(finite)]
     if finite.size:
@@ -36,3 +35,24 @@ def run(ctx, settings):
             f"{finite.min():.4g} / {np.median(finite):.4g} / {finite.max():.4g} on cells of {width:.4g} x "
             f"{height:.4g} {'m' if ctx.grid.is_geographic else 'map units'}, values read per {per}"
             + (" (these numbers scale with the cell size; see docs/method.md)" if per == "length" else ""))
+
+
+def _write_matrix(ctx, matrix, units):
+    ids = [int(p) for p in ctx.graph.patch_ids]
+    square = pd.DataFrame(matrix, index=pd.Index(ids, name="patch"), columns=ids)
+    ctx.write_table("effective_resistance_matrix.csv", square, index=True,
+                    description="square matrix of effective resistance between patches (inf: not connected)",
+                    units=units)
+
+
+def _write(ctx, matrix, table, units):
+    """A network's tables: its resistances are in the edges' own resistance unit (no cell size enters)."""
+    ctx.write_table("effective_resistance.csv", table,
+                    description="one row per zone pair: effective resistance, escape probability each way and "
+                                "commute time", units=f"{units}; probability; steps")
+    _write_matrix(ctx, matrix, units)
+    finite = matrix[np.triu_indices_from(matrix, 1)]
+    finite = finite[np.isfinite(finite)]
+    if finite.size:
+        ctx.summary["effective resistance (min / median / max)"] = (
+            f"{finite.min():.4g} / {np.median(finite):.4g} / {finite.max():.4g} ({units})")

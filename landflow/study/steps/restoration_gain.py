@@ -3,7 +3,7 @@
 import numpy as np
 import pandas as pd
 
-from ...analyses.priority import check_connected_pairs, objective_weights, restoration_gain
+from ...analyses.priority import check_connected_pairs, edge_restoration_gain, objective_weights, restoration_gain
 from ...errors import ConfigError, InputError
 from ..schema import Key, Section
 from ._patch_settings import check_pair_list, resolve_pairs
@@ -14,7 +14,8 @@ SETTINGS = Section({
                            "[[1, 2]]; empty = every connected pair, weighted", check=check_pair_list),
     "use_patch_weights": Key(bool, True, "with every pair, weight each by the product of the patches' "
                                          "weights (when patch weights are given)"),
-    "top_cells": Key(int, 20, "cells listed in restoration_gain_cells.csv",
+    "top_cells": Key(int, 20, "cells listed in restoration_gain_cells.csv (edges in restoration_gain_edges.csv on a "
+                              "network)",
                      check=lambda v: None if v >= 1 else "must be at least 1"),
 }, "Restoration gain: for every cell, the first-order drop of the objective (effective resistance of one "
    "pair or a weighted sum over pairs) per unit reduction of the cell's resistance (per unit increase of "
@@ -38,6 +39,9 @@ def run(ctx, settings):
     voltages = ctx.voltages
     patch_weight = ctx.patch_weight if settings["use_patch_weights"] and pairs is None else None
     weights = objective_weights(voltages, pairs, patch_weight)
+    if ctx.is_network:
+        _network(ctx, settings, voltages, weights)
+        return
     gain = restoration_gain(voltages, ctx.grid, weights, kind=ctx.kind)
     per = "reduction of resistance" if ctx.kind == "resistance" else "increase of conductance"
     units = f"objective units per unit {per} (map units x pair weight for a resistance surface)"
@@ -60,3 +64,31 @@ def run(ctx, settings):
         "gain": gain[rows, cols], "relative_gain": relative[rows, cols], "patch": patch}),
         description="the cells with the largest restoration gain, with map coordinates of their centres",
         units="row/col; map units; surface unit; as restoration_gain.tif; patch label (0 = none)")
+
+
+def _network(ctx, settings, voltages, weights):
+    """Gain per network edge, its rank, and the best edges as a table."""
+    net = ctx.network
+    gain = edge_restoration_gain(voltages, weights, ctx.merged_edges())
+    resistance = 1.0 / net.conductance
+    units = "objective units per unit reduction of the edge's resistance (pair weight)"
+    rank = pd.Series(gain).rank(ascending=False, method="min").to_numpy()
+    ctx.write_edge_values("restoration_gain", gain, units=units,
+                          description="first-order drop of the objective per unit reduction of each edge's resistance")
+    ctx.write_edge_values("restoration_gain_relative", gain * resistance, units="objective units (pair weight x "
+                          "resistance unit)", description="gain times the edge's resistance: the first-order drop "
+                                                          "of the objective if its resistance were halved, times 2")
+    ctx.write_edge_values("criticality_rank", rank, units="rank (1 = the edge whose resistance matters most)",
+                          description="edges ranked by restoration gain: 1 is the edge whose resistance the "
+                                      "objective depends on most")
+    top = np.argsort(-gain, kind="stable")[: settings["top_cells"]]
+    table = pd.DataFrame({"rank": rank[top].astype(int), "edge": net.edge_id[top], "from": net.node_id[net.source[top]],
+                          "to": net.node_id[net.target[top]], "resistance": resistance[top], "gain": gain[top],
+                          "relative_gain": (gain * resistance)[top]})
+    ctx.write_table("restoration_gain_edges.csv", table,
+                    description="the edges with the largest restoration gain (line number or feature id, end nodes)",
+                    units="rank; edge; node ids; resistance unit; as restoration_gain in network_edges.csv")
+    ctx.quicklook("restoration_gain.png", None, title="Restoration gain per edge", units=units, kind="log")
+    best = top[0]
+    ctx.summary["edge where lowering resistance helps most"] = (
+        f"{net.where_edge(best)}: gain {gain[best]:.4g} {units}")

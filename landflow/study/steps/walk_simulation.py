@@ -46,7 +46,7 @@ def run(ctx, settings):
             ctx.warn(f"walk simulation: walkers from patch {pid} can reach no other patch and cannot die; "
                      "not simulated.")
             continue
-        sample = simulate_walks(ctx.graph, release_patch=pid, mortality=ctx.mortality, walkers=settings["walkers"],
+        sample = simulate_walks(ctx.walk_graph, release_patch=pid, mortality=ctx.mortality, walkers=settings["walkers"],
                                 seed=rng, max_steps=settings["max_steps"])
         table = sample_table(sample, pid)
         truth = exact[exact["release_patch"] == pid]
