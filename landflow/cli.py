@@ -163,8 +163,10 @@ def _dispatch(args):
             return _open_page(Path(manifest["folder"]) / "report.html")
     else:
         summary = check_study(args.study)
-        print(f"landflow: {args.study} is valid: {summary['cells']:,} landscape cells, "
-              f"{summary['patches']} patches, {summary['pieces']} connected piece(s); "
+        what = (f"a network of {summary['cells']:,} nodes and {summary['network_edges']:,} edges, "
+                f"{summary['patches']} zones" if "network_edges" in summary else
+                f"{summary['cells']:,} landscape cells, {summary['patches']} patches")
+        print(f"landflow: {args.study} is valid: {what}, {summary['pieces']} connected piece(s); "
               f"analyses: {', '.join(summary['analyses'])}")
     return 0
 

@@ -9,7 +9,7 @@ import numpy as np
 
 from . import style
 from ._frame import MapGeometry, _halo, describe_crs, finish_map, new_map
-from ._quicklook import colour_scale
+from ._quicklook import _format_tick, colour_scale
 
 __all__ = ["network_map", "render_network_map"]
 
@@ -49,7 +49,7 @@ def render_network_map(x, y, lines, *, node_values=None, edge_values=None, kind=
 
     geometry = _geometry(x, y, lines, crs)
     for old, new in (title_words or {}).items():
-        title = title.replace(old, new)
+        title, units = title.replace(old, new), units.replace(old, new)
     with matplotlib.rc_context(style.matplotlib_style()):
         fig, ax = new_map(geometry, title=title)
         handles = []
@@ -100,9 +100,14 @@ def render_network_map(x, y, lines, *, node_values=None, edge_values=None, kind=
             else:
                 mappable = ScalarMappable(norm=norm, cmap=cmap)
                 bar = fig.colorbar(mappable, ax=ax, shrink=0.9, extend=extend, ticks=ticks, aspect=30, pad=0.02)
-                bar.set_label(textwrap.fill(units + (" (log scale)" if kind == "log" else ""), 42))
+                bar.set_label(textwrap.fill(units + (" (log scale)" if kind == "log" else
+                                                     " (log scale either side of a linear band around 0)"
+                                                     if kind == "change" else ""), 42))
                 bar.outline.set_linewidth(0.5)
-                if kind == "count" and ticks is not None:
+                if kind in ("log", "change") and ticks is not None:
+                    bar.ax.minorticks_off()
+                    bar.set_ticks(ticks, labels=[_format_tick(t) for t in ticks])
+                elif kind == "count" and ticks is not None:
                     bar.set_ticks(ticks, labels=[str(int(t)) for t in ticks])
                     bar.ax.minorticks_off()
         if zones is not None and (np.asarray(zones) > 0).any():

@@ -422,7 +422,8 @@ def check_study(study):
     graph = ctx.graph
     return {"cells": graph.n_cells, "nodes": graph.n_nodes,
             "patches": graph.n_patches, "pieces": graph.n_pieces,
-            "analyses": list(study.analyses), "warnings": ctx.warnings}
+            "analyses": list(study.analyses), "warnings": ctx.warnings,
+            **({"network_edges": ctx.network.n_edges} if ctx.is_network else {})}
 
 
 def make_context(study, folder):
