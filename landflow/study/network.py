@@ -78,7 +78,8 @@ class NetworkContext(RunContext):
     def landscape_record(self):
         """The manifest's account of the network."""
         net, graph = self.network, self.graph
-        record = {"network": True, "source": net.source_name, "network_nodes": net.n_nodes,
+        record = {"network": True, "source": Path(net.source_name.split(", layer")[0]).name
+                  + (net.source_name[len(net.source_name.split(", layer")[0]):]), "network_nodes": net.n_nodes,
                   "network_edges": net.n_edges, "coordinates": net.has_coordinates,
                   "crs": net.crs.to_string() if net.crs is not None else None,
                   "cells": net.n_nodes, "nodes": graph.n_nodes, "edges": graph.n_edges,

@@ -91,4 +91,5 @@ def _network(ctx, settings, voltages, weights):
     ctx.quicklook("restoration_gain.png", None, title="Restoration gain per edge", units=units, kind="log")
     best = top[0]
     ctx.summary["edge where lowering resistance helps most"] = (
-        f"{net.where_edge(best)}: gain {gain[best]:.4g} {units}")
+        f"{net.edge_label} {net.edge_id[best]} (nodes {net.node_id[net.source[best]]}-{net.node_id[net.target[best]]}): "
+        f"gain {gain[best]:.4g} {units}")
