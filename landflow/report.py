@@ -121,6 +121,7 @@ _ANALYSIS_TITLES = {
     "current_density": "Current density",
     "corridor_ranking": "Links ranked by their share of connectivity",
     "corridor_maps": "Corridors and pinch points",
+    "edge_criticality": "The network edges whose loss costs most",
     "restoration_gain": "Where restoration helps most",
     "scenario_change": "What-if: the changed landscape",
     "least_cost_paths": "Least-cost paths",

@@ -340,11 +340,12 @@ def study_from_dict(raw, *, base_dir=".", source="study", path=None):
                               f"Available: {', '.join(ANALYSES)}.")
     analyses = {name: validate_section(wanted[name], step.SETTINGS, f"analyses.{name}", base_dir, source)
                 for name, step in ANALYSES.items() if name in wanted}
-    for name in analyses if network else ():
-        reason = getattr(ANALYSES[name], "GRID_ONLY", None)
+    for name in analyses:
+        reason = getattr(ANALYSES[name], "GRID_ONLY" if network else "NETWORK_ONLY", None)
         if reason:
-            raise ConfigError(f"{source}: [analyses.{name}] needs a raster landscape: {reason}. Remove it from this "
-                              "network study.")
+            needs, this = ("a raster landscape", "network") if network else ("a network", "raster")
+            raise ConfigError(f"{source}: [analyses.{name}] needs {needs}: {reason}. Remove it from this {this} "
+                              "study.")
     for key, method in settings.get("alignment", {}).items():
         if method is None:
             continue

@@ -150,8 +150,12 @@ def _example_value(name, key):
 
 
 def _example(name, step):
-    lines = ["```toml", "[landscape]", 'resistance = "resistance.tif"', "", "[patches]", 'raster = "patches.tif"', "",
-             f"[analyses.{name}]"]
+    if getattr(step, "NETWORK_ONLY", None):
+        study = ["[network]", 'edges = "roads.gpkg"', 'resistance_column = "minutes"', "", "[zones]",
+                 'features = "towns.gpkg"', "snap_distance = 50.0"]
+    else:
+        study = ["[landscape]", 'resistance = "resistance.tif"', "", "[patches]", 'raster = "patches.tif"']
+    lines = ["```toml", *study, "", f"[analyses.{name}]"]
     for key_name, key in step.SETTINGS.keys.items():
         lines.append(f"{key_name} = {toml_value(_example_value(key_name, key))}")
     return lines + ["```", ""]

@@ -27,8 +27,9 @@ def test_every_key_with_its_default_and_unit_is_documented():
                 assert f"`{toml_value(key.default)}`" in text
             if key.unit:
                 assert key.unit in text
-    for name in ANALYSES:
-        assert "```toml\n[landscape]" in text and f"\n[analyses.{name}]\n" in text
+    for name, step in ANALYSES.items():
+        first = "[network]" if getattr(step, "NETWORK_ONLY", None) else "[landscape]"
+        assert f"```toml\n{first}" in text and f"\n[analyses.{name}]\n" in text
 
 
 def test_every_analysis_example_validates(tmp_path):
@@ -38,7 +39,8 @@ def test_every_analysis_example_validates(tmp_path):
     from landflow.study.schema import validate_section
 
     for name, step in ANALYSES.items():
-        block = re.search(rf"```toml\n(\[landscape\][^`]*?\n\[analyses\.{name}\]\n[^`]*?)```", render()).group(1)
+        block = re.search(rf"```toml\n(\[(?:landscape|network)\][^`]*?\n\[analyses\.{name}\]\n[^`]*?)```",
+                          render()).group(1)
         table = tomllib.loads(block)["analyses"][name]
         for value in table.values():     # named input files must exist for the path check
             if isinstance(value, str) and "." in value:

@@ -313,7 +313,8 @@ def test_line_study_writes_the_network_back(tmp_path):
     network = 'edges = "roads.gpkg"\nresistance_column = "cost"'
     zones = 'features = "towns.gpkg"\nsnap_distance = 5.0'
     path = study(tmp_path, network=network, zones=zones,
-                 analyses="[analyses.effective_resistance]\n[analyses.current_density]\n[analyses.restoration_gain]")
+                 analyses="[analyses.effective_resistance]\n[analyses.current_density]\n[analyses.restoration_gain]\n"
+                          "[analyses.edge_criticality]")
     lf.run_study(path)
     out = tmp_path / "out"
     edges = gpd.read_file(out / "network.gpkg", layer="edges")
@@ -323,8 +324,28 @@ def test_line_study_writes_the_network_back(tmp_path):
     assert edges["current_density"].to_numpy() == pytest.approx([0.5, 0.5, 0.5])
     # dR/dr_e = i_e^2 = 1/4 on every edge (Ghosh, Boyd & Saberi 2008)
     assert edges["restoration_gain"].to_numpy() == pytest.approx([0.25, 0.25, 0.25])
+    # without any one edge the two zones are joined by a path of resistance 3: 1/1.5 - 1/3 = 1/3 lost (series law)
+    assert edges["connectivity_drop"].to_numpy() == pytest.approx([1 / 3] * 3)
     assert set(edges.columns) >= {"criticality_rank", "resistance", "length", "from", "to"}
     manifest = json.loads((out / "manifest.json").read_text())
     assert {"network.gpkg", "network_edges.csv", "network_nodes.csv"} <= {o["file"] for o in manifest["outputs"]}
     assert "Network" in (out / "report.md").read_text()
     assert "zones" in (out / "report.html").read_text()
+
+
+def test_network_only_analysis_is_refused_on_a_raster(tmp_path):
+    import rasterio
+    profile = {"driver": "GTiff", "height": 2, "width": 2, "count": 1, "dtype": "float32",
+               "transform": rasterio.transform.from_origin(0, 2, 1, 1), "crs": CRS}
+    with rasterio.open(tmp_path / "r.tif", "w", **profile) as dst:
+        dst.write(np.ones((1, 2, 2), dtype=np.float32))
+    write(tmp_path / "study.toml", """
+        [landscape]
+        resistance = "r.tif"
+        [patches]
+        raster = "r.tif"
+        [analyses.edge_criticality]
+    """)
+    with pytest.raises(ConfigError, match=r"\[analyses.edge_criticality\] needs a network: it ranks the edges of a "
+                                          "network; on a raster, corridor_ranking ranks the links"):
+        load_study(tmp_path / "study.toml")

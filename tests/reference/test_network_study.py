@@ -338,3 +338,45 @@ def test_what_if_on_a_changed_edge_table_equals_networkx(tmp_path):
             nx.resistance_distance(reference(pairs, resistance), a, b, weight="resistance"), rel=1e-10)
         assert row.resistance_after == pytest.approx(
             nx.resistance_distance(reference(pairs, changed), a, b, weight="resistance"), rel=1e-10)
+
+
+def test_edge_criticality_equals_networkx_without_each_edge(tmp_path):
+    # the drop of sum_ab 1 / R_ab when one edge is removed, recomputed by networkx on the graph without it; zone 4
+    # hangs on a single edge (a bridge: losing it cuts zone 4 off, 1 / R = 0 for its pairs), and one pair of nodes
+    # is joined twice (losing one of two parallel edges)
+    pairs, resistance = random_edges(12, n=15, extra=12)
+    pairs = pairs + [(3, 15), (pairs[0][0], pairs[0][1])]
+    resistance = np.concatenate([resistance, [0.7, 1.9]])
+    zone_of = {1: 1, 6: 2, 11: 3, 15: 4}
+    path = csv_study(tmp_path, pairs, resistance, zone_of, ["edge_criticality"])
+    path.write_text(path.read_text().replace("[analyses.edge_criticality]",
+                                             "[analyses.edge_criticality]\ntop_edges = 0"))
+    lf.run_study(path)
+    edges = pd.read_csv(tmp_path / "out" / "network_edges.csv")
+
+    def connectivity(keep):
+        g = nx.MultiGraph()
+        g.add_nodes_from(range(16))
+        for (a, b), r in zip(np.array(pairs)[keep], resistance[keep]):
+            g.add_edge(int(a), int(b), conductance=1.0 / r)
+        simple = nx.Graph()
+        simple.add_nodes_from(g.nodes)
+        for a, b, data in g.edges(data=True):     # parallel edges add as conductances
+            c = simple.edges[a, b]["conductance"] + data["conductance"] if simple.has_edge(a, b) else data["conductance"]
+            simple.add_edge(a, b, conductance=c)
+        total = 0.0
+        for a, b in itertools.combinations(sorted(zone_of), 2):
+            if nx.has_path(simple, a, b):
+                piece = simple.subgraph(nx.node_connected_component(simple, a))
+                total += 1.0 / nx.resistance_distance(piece, a, b, weight="conductance", invert_weight=False)
+        return total
+
+    before = connectivity(np.ones(len(pairs), dtype=bool))
+    for e in range(len(pairs)):
+        keep = np.ones(len(pairs), dtype=bool)
+        keep[e] = False
+        assert edges["connectivity_drop"].iloc[e] == pytest.approx(before - connectivity(keep), rel=1e-8, abs=1e-12)
+    table = pd.read_csv(tmp_path / "out" / "edge_criticality.csv")
+    bridge = table[table["bridge"]]
+    assert set(zip(bridge["from"], bridge["to"])) >= {("n3", "n15")}
+    assert table["rank"].iloc[0] == 1 and table["connectivity_drop"].is_monotonic_decreasing

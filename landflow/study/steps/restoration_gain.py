@@ -78,7 +78,7 @@ def _network(ctx, settings, voltages, weights):
     ctx.write_edge_values("restoration_gain_relative", gain * resistance, units="objective units (pair weight x "
                           "resistance unit)", description="gain times the edge's resistance: the first-order drop "
                                                           "of the objective if its resistance were halved, times 2")
-    ctx.write_edge_values("criticality_rank", rank, units="rank (1 = the edge whose resistance matters most)",
+    ctx.write_edge_values("restoration_gain_rank", rank, units="rank (1 = the edge whose resistance matters most)",
                           description="edges ranked by restoration gain: 1 is the edge whose resistance the "
                                       "objective depends on most")
     top = np.argsort(-gain, kind="stable")[: settings["top_cells"]]
