@@ -346,6 +346,11 @@ def study_from_dict(raw, *, base_dir=".", source="study", path=None):
             needs, this = ("a raster landscape", "network") if network else ("a network", "raster")
             raise ConfigError(f"{source}: [analyses.{name}] needs {needs}: {reason}. Remove it from this {this} "
                               "study.")
+    for where, name in ALIGNED_PATHS.values() if network else ():
+        if where != "scenario_change" and (analyses.get(where) or {}).get(name) is not None:
+            raise ConfigError(f"{source}: 'analyses.{where}.{name}' is a raster on a landscape's grid, but this study "
+                              "is a network, which has no grid. Remove it (docs/networks.md lists what networks "
+                              "take).")
     for key, method in settings.get("alignment", {}).items():
         if method is None:
             continue

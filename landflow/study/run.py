@@ -177,8 +177,9 @@ class RunContext:
             return None
         weight = np.array([s[int(p)] for p in self.graph.patch_ids])
         if not np.any(weight > 0):
-            spec = self.study.settings["patches"]
-            key = "patches.weight_raster" if spec.get("weight_raster") is not None else "patches.weight_column"
+            spec = self.study.settings.get("patches") or {}
+            key = ("zones.weight_column" if self.is_network else "patches.weight_raster"
+                   if spec.get("weight_raster") is not None else "patches.weight_column")
             self.warn(f"every patch weight from '{key}' is 0, so every pair weighs 0 and weighted maps and sums "
                       "are all 0. Check the weights, or set 'use_patch_weights = false' in the analyses.")
         return weight

@@ -196,9 +196,9 @@ def test_raster_inputs_of_analyses_are_refused_on_a_network(tmp_path):
     square(tmp_path)
     write(tmp_path / "time.tif", "not a raster")
     path = study(tmp_path, analyses='[analyses.expected_steps]\ncrossing_time = "time.tif"')
-    with pytest.raises(ConfigError, match=r"the crossing-time raster 'time.tif' is a raster on a landscape's grid, "
+    with pytest.raises(ConfigError, match=r"'analyses.expected_steps.crossing_time' is a raster on a landscape's grid, "
                                           "but this study is a network"):
-        lf.check_study(path)
+        load_study(path)
 
 
 def test_mortality_raster_is_refused_on_a_network(tmp_path):

@@ -380,3 +380,30 @@ def test_edge_criticality_equals_networkx_without_each_edge(tmp_path):
     bridge = table[table["bridge"]]
     assert set(zip(bridge["from"], bridge["to"])) >= {("n3", "n15")}
     assert table["rank"].iloc[0] == 1 and table["connectivity_drop"].is_monotonic_decreasing
+
+
+def test_node_mortality_absorption_equals_the_absorbing_chain(tmp_path):
+    # a walker at x dies with probability kappa_x, else hops to y with probability c_xy / C_x: h = Q h + r with
+    # Q_xy = (1 - kappa_x) P_xy (Kemeny & Snell 1960, Finite Markov Chains, ch. III)
+    pairs, resistance = random_edges(13, n=14, extra=10)
+    zone_of = {0: 1, 9: 2}
+    kappa = np.random.default_rng(13).uniform(0.0, 0.2, 14)
+    kappa[list(zone_of)] = 0.0
+    path = csv_study(tmp_path, pairs, resistance, zone_of, ["absorption_probability"],
+                     extra='[mortality]\nnode_column = "death"')
+    nodes = pd.read_csv(tmp_path / "nodes.csv")
+    nodes["death"] = kappa
+    nodes.to_csv(tmp_path / "nodes.csv", index=False, float_format="%.17g")
+    lf.run_study(path)
+    out = pd.read_csv(tmp_path / "out" / "network_nodes.csv")
+    C = np.zeros((14, 14))
+    for (a, b), r in zip(pairs, resistance):
+        C[a, b] += 1 / r
+        C[b, a] += 1 / r
+    hop = (1 - kappa)[:, None] * C / C.sum(axis=1, keepdims=True)
+    transient = [k for k in range(14) if k not in zone_of]
+    Q = hop[np.ix_(transient, transient)]
+    for zone_node, zone in zone_of.items():
+        h = np.linalg.solve(np.eye(len(transient)) - Q, hop[transient, zone_node])
+        assert out[f"absorption_probability_patch_{zone}"].to_numpy()[transient] == pytest.approx(h, rel=1e-9,
+                                                                                                    abs=1e-12)
