@@ -25,7 +25,8 @@ def _geometry(x, y, lines, crs):
 
 
 def render_network_map(x, y, lines, *, node_values=None, edge_values=None, kind="magnitude", title="", units="",
-                       zones=None, zone_names=None, crs=None, class_names=None, title_words=None):
+                       zones=None, zone_names=None, crs=None, class_names=None, title_words=None,
+                       marked_lines=None, mark_label="changed"):
     """A figure of a network in map coordinates.
 
     Parameters
@@ -38,6 +39,8 @@ def render_network_map(x, y, lines, *, node_values=None, edge_values=None, kind=
     node_values : array, one per node, optional
         Drawn as the nodes' colours (when no edge values are given).
     kind : one of :data:`landflow.maps.KINDS`
+    marked_lines : list of (n, 2) arrays, optional
+        Lines drawn dashed in the change colour and named ``mark_label`` in the legend (edges a what-if changed).
     zones : array of int, one per node (0 = none), optional
         Zone nodes are drawn as squares and each zone labelled by ``zone_names[id]``.
     """
@@ -47,7 +50,7 @@ def render_network_map(x, y, lines, *, node_values=None, edge_values=None, kind=
     import matplotlib
     from matplotlib.cm import ScalarMappable
 
-    geometry = _geometry(x, y, lines, crs)
+    geometry = _geometry(x, y, list(lines) + list(marked_lines or []), crs)
     for old, new in (title_words or {}).items():
         title, units = title.replace(old, new), units.replace(old, new)
     with matplotlib.rc_context(style.matplotlib_style()):
@@ -110,6 +113,11 @@ def render_network_map(x, y, lines, *, node_values=None, edge_values=None, kind=
                 elif kind == "count" and ticks is not None:
                     bar.set_ticks(ticks, labels=[str(int(t)) for t in ticks])
                     bar.ax.minorticks_off()
+        if marked_lines:
+            ax.add_collection(LineCollection(marked_lines, colors=style.CHANGE_MARK, linewidths=2.4, zorder=5.5,
+                                             linestyles=(0, (3, 1.5)), capstyle="round"))
+            handles.append(Line2D([], [], color=style.CHANGE_MARK, linewidth=2.0, linestyle=(0, (3, 1.5)),
+                                  label=mark_label))
         if zones is not None and (np.asarray(zones) > 0).any():
             zones = np.asarray(zones)
             inside = zones > 0

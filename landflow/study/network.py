@@ -88,6 +88,18 @@ class NetworkContext(RunContext):
             record["patch_names"] = {str(int(p)): self.patches.name_of(p) for p in graph.patch_ids}
         return record
 
+    def changed_edges(self, changed):
+        """Indices of the edges of ``changed`` (a Network) that the study's network does not have as they are."""
+        def key(net):
+            lo = np.minimum(net.source, net.target)
+            hi = np.maximum(net.source, net.target)
+            return set(zip(lo.tolist(), hi.tolist(), np.round(net.conductance, 12).tolist()))
+        before = key(self.network)
+        lo = np.minimum(changed.source, changed.target)
+        hi = np.maximum(changed.source, changed.target)
+        return [e for e, k in enumerate(zip(lo.tolist(), hi.tolist(), np.round(changed.conductance, 12).tolist()))
+                if k not in before], changed
+
     def where(self, row, col):
         """How messages name a network node (the pseudo-grid's cell (0, col))."""
         return f"node {self.network.node_id[int(col)]!r}"
@@ -236,8 +248,13 @@ class NetworkContext(RunContext):
         path = self._record(name, f"quick-look picture: {title}", units)
         path.parent.mkdir(parents=True, exist_ok=True)
         net = self.network
+        marked = None
+        if marks is not None:
+            indices, other = marks
+            marked = [_lines(other)[e] for e in indices]
         network_map(path, net.x, net.y, _lines(net), node_values=None if edge else np.asarray(array).ravel(),
                     edge_values=edge["values"] if edge else None, kind=kind, title=title, units=units,
+                    marked_lines=marked, mark_label=mark_label,
                     zones=self.patches.labels.ravel(), zone_names=self.patches.id_table, crs=map_crs(net.crs),
                     class_names=class_names, title_words={"patches": "zones", "patch": "zone"})
 

@@ -31,5 +31,6 @@ def run(ctx, settings):
     top = table.iloc[0]
     if np.isfinite(top["effective_resistance"]):
         ctx.summary["most important link"] = (
-            f"patches {int(top['patch_a'])}-{int(top['patch_b'])}, losing it lowers overall connectivity "
+            f"patches {ctx.patches.name_of(top['patch_a'])}-{ctx.patches.name_of(top['patch_b'])}, losing it lowers "
+            "overall connectivity "
             f"by {100 * top['connectivity_drop_share']:.1f}%")

@@ -76,7 +76,8 @@ def run(ctx, settings):
     _summary(ctx, totals)
     if ctx.is_network:
         ctx.quicklook("current_density_change.png", change, title="Change of current density (after minus before)",
-                      units="A (current density after minus before)", kind="change")
+                      units="A (current density after minus before)", kind="change",
+                      marks=ctx.changed_edges(changed), mark_label="edge added or changed")
         return
     before_values = np.where(ctx.grid.mask, ctx.grid.values, np.nan)
     after_values = np.where(grid.mask, grid.values, np.nan)
