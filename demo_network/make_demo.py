@@ -16,9 +16,10 @@ Files written next to this script:
 * ``roads_with_new_bridge.gpkg``: the same, plus a planned fourth bridge (for the what-if);
 * ``towns.geojson``: the five towns, four as points and Millford as a polygon around its centre.
 
-Run:  python demo_network/make_demo.py
+Run:  python demo_network/make_demo.py [--out FOLDER]
 """
 
+import argparse
 from pathlib import Path
 
 import geopandas as gpd
@@ -109,14 +110,19 @@ def town_features(towns, seed=SEED):
     return gpd.GeoDataFrame(rows, crs=CRS)
 
 
-def main():
+def main(argv=None):
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--out", type=Path, default=HERE, help="folder to write to (default: beside this script)")
+    out = parser.parse_args(argv).out
+    out.mkdir(parents=True, exist_ok=True)
     frame, towns = roads()
-    frame.to_file(HERE / "roads.gpkg", layer="roads", driver="GPKG", engine="pyogrio")
+    for name in ("roads.gpkg", "roads_with_new_bridge.gpkg", "towns.geojson"):
+        (out / name).unlink(missing_ok=True)
+    frame.to_file(out / "roads.gpkg", layer="roads", driver="GPKG", engine="pyogrio")
     changed, _ = roads(new_bridge=True)
-    changed.to_file(HERE / "roads_with_new_bridge.gpkg", layer="roads", driver="GPKG", engine="pyogrio")
+    changed.to_file(out / "roads_with_new_bridge.gpkg", layer="roads", driver="GPKG", engine="pyogrio")
     zones = town_features(towns)
-    (HERE / "towns.geojson").unlink(missing_ok=True)
-    zones.to_file(HERE / "towns.geojson", driver="GeoJSON", engine="pyogrio")
+    zones.to_file(out / "towns.geojson", driver="GeoJSON", engine="pyogrio")
     print(f"{len(frame)} road sections, {len(changed) - len(frame)} planned bridge, {len(zones)} towns: "
           f"{pd.Series(frame['road_class']).value_counts().to_dict()}")
 
