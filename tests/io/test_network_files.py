@@ -313,7 +313,8 @@ def test_line_study_writes_the_network_back(tmp_path):
     network = 'edges = "roads.gpkg"\nresistance_column = "cost"'
     zones = 'features = "towns.gpkg"\nsnap_distance = 5.0'
     path = study(tmp_path, network=network, zones=zones,
-                 analyses="[analyses.effective_resistance]\n[analyses.current_density]\n[analyses.restoration_gain]\n"
+                 analyses="[analyses.effective_resistance]\n[analyses.current_density]\npair_current_maps = true\n"
+                          "pair_voltage_maps = true\n[analyses.restoration_gain]\n"
                           "[analyses.edge_criticality]")
     lf.run_study(path)
     out = tmp_path / "out"
@@ -322,6 +323,9 @@ def test_line_study_writes_the_network_back(tmp_path):
     assert len(edges) == 3 and len(nodes) == 3 and edges.crs == CRS
     # R = 3 || (1 + 2) = 1.5; a unit current splits in half: 1/2 on each edge
     assert edges["current_density"].to_numpy() == pytest.approx([0.5, 0.5, 0.5])
+    assert edges["current_1-2"].to_numpy() == pytest.approx([0.5, 0.5, 0.5])
+    # voltage 1.5 at zone 1 (= R), 0 at zone 2, and 1.5 - 0.5 x 1 = 1 at the middle node (half the current crosses r = 1)
+    assert nodes["voltage_1-2"].to_numpy() == pytest.approx([1.5, 1.0, 0.0])
     # dR/dr_e = i_e^2 = 1/4 on every edge (Ghosh, Boyd & Saberi 2008)
     assert edges["restoration_gain"].to_numpy() == pytest.approx([0.25, 0.25, 0.25])
     # without any one edge the two zones are joined by a path of resistance 3: 1/1.5 - 1/3 = 1/3 lost (series law)

@@ -2,6 +2,8 @@
 
 import logging
 
+import numpy as np
+
 from ...analyses.current import current_density, edge_current_density, pair_current, pair_weights
 from ..schema import Key, Section
 from ._patch_settings import pair_map
@@ -51,6 +53,12 @@ def run(ctx, settings):
             if settings["pair_current_maps"]:
                 ctx.write_raster(pair_map(ids[a], ids[b], "current.tif"), pair_current(voltages, a, b), units="A",
                                  description=f"current for a unit current from patch {ids[a]} to patch {ids[b]}")
+                if ctx.is_network:
+                    i, j, c = ctx.merged_edges()
+                    v = voltages.pair_voltage(a, b)
+                    ctx.write_edge_values(f"current_{ids[a]}-{ids[b]}", np.nan_to_num(np.abs(c * (v[i] - v[j]))),
+                                          units="A", description=f"current along each edge for a unit current "
+                                                                 f"from zone {ids[a]} to zone {ids[b]}")
             if settings["pair_voltage_maps"]:
                 ctx.write_raster(pair_map(ids[a], ids[b], "voltage.tif"), voltages.pair_voltage(a, b), units="V (resistance unit x A)",
                                  description=f"voltage for a unit current from patch {ids[a]} to {ids[b]}, 0 at {ids[b]}")
