@@ -68,28 +68,36 @@ def render_network_map(x, y, lines, *, node_values=None, edge_values=None, kind=
         cmap = norm = ticks = None
         if shown is not None:
             cmap, norm, ticks, extend = colour_scale(shown, kind, classes=(class_names or None) and class_names.keys())
-        base_colour = style.NODATA if edge_values is not None else style.MUTED
-        ax.add_collection(LineCollection(lines, colors=base_colour, linewidths=0.7, zorder=3, capstyle="round"))
+        # thinner lines and no junction dots on a dense network, so that a map of 100 000 edges is still readable
+        density = float(np.clip(np.sqrt(400.0 / max(len(lines), 1)), 0.12, 1.0))
+        finite = None
         if edge_values is not None:
             finite = np.isfinite(shown) & ((shown > 0) if kind in ("log", "count") else np.isfinite(shown))
+        # the plain network under the values: only the edges without a value, when edges carry the values
+        plain = lines if finite is None else [line for line, f in zip(lines, finite) if not f]
+        ax.add_collection(LineCollection(plain, colors=style.NODATA if finite is not None else style.MUTED,
+                                         linewidths=0.7 * density, zorder=3, capstyle="round"))
+        if edge_values is not None:
             top = np.nanmax(np.abs(shown[finite])) if finite.any() else 1.0
             share = np.abs(np.nan_to_num(shown)) / (top if top > 0 else 1.0)
-            widths = 0.8 + 4.6 * np.sqrt(np.clip(share, 0.0, 1.0)) if kind != "probability" else np.full(share.size, 2.0)
-            order = np.argsort(share)            # the strongest edges on top
-            chosen = [lines[e] for e in order if finite[e]]
-            colours = [cmap(norm(shown[e])) for e in order if finite[e]]
-            ax.add_collection(LineCollection(chosen, colors=colours, linewidths=widths[order][finite[order]], zorder=4,
-                                             capstyle="round"))
+            widths = density * (0.8 + 4.6 * np.sqrt(np.clip(share, 0.0, 1.0)) if kind != "probability"
+                                else np.full(share.size, 2.0))
+            order = np.argsort(share, kind="stable")            # the strongest edges on top
+            order = order[finite[order]]
+            colours = cmap(norm(shown[order]))
+            ax.add_collection(LineCollection([lines[e] for e in order], colors=colours, linewidths=widths[order],
+                                             zorder=4, capstyle="round"))
             handles.append(Line2D([], [], color=style.INK, linewidth=3.0, label="line width and colour: value per edge"))
             handles.append(Line2D([], [], color=style.NODATA, linewidth=1.0, label="no flow (or 0)"))
         node_colour = style.INK
         if node_values is not None and edge_values is None:
             finite = np.isfinite(shown)
-            ax.scatter(x[~finite], y[~finite], s=7, color=style.NODATA, edgecolor=style.MUTED, linewidth=0.3,
-                       zorder=5)
-            ax.scatter(x[finite], y[finite], s=26, c=shown[finite], cmap=cmap, norm=norm, edgecolor=style.INK,
-                       linewidth=0.35, zorder=6)
-        else:
+            size = 26 * density**2
+            ax.scatter(x[~finite], y[~finite], s=7 * density**2, color=style.NODATA, edgecolor=style.MUTED,
+                       linewidth=0.3 * density, zorder=5)
+            ax.scatter(x[finite], y[finite], s=size, c=shown[finite], cmap=cmap, norm=norm,
+                       edgecolor=style.INK if density > 0.5 else "none", linewidth=0.35, zorder=6)
+        elif density > 0.5:
             ax.scatter(x, y, s=4, color=node_colour, zorder=5, linewidth=0)
         if shown is not None:
             if kind == "classes":

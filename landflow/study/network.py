@@ -260,9 +260,12 @@ class NetworkContext(RunContext):
 
 
 def _lines(network):
-    """Each edge's coordinates as an (n, 2) array (its line, or the straight line between its nodes)."""
-    import shapely
-    return [shapely.get_coordinates(g) for g in network.geometry]
+    """Each edge's coordinates as an (n, 2) array (its line, or the straight line between its nodes), made once."""
+    if getattr(network, "_lines", None) is None:
+        import shapely
+        coords, index = shapely.get_coordinates(network.geometry.values, return_index=True)
+        network._lines = np.split(coords, np.flatnonzero(np.diff(index)) + 1)
+    return network._lines
 
 
 def _column_name(name):
