@@ -88,7 +88,7 @@ def render_network_map(x, y, lines, *, node_values=None, edge_values=None, kind=
             ax.add_collection(LineCollection([lines[e] for e in order], colors=colours, linewidths=widths[order],
                                              zorder=4, capstyle="round"))
             handles.append(Line2D([], [], color=style.INK, linewidth=3.0, label="line width and colour: value per edge"))
-            handles.append(Line2D([], [], color=style.NODATA, linewidth=1.0, label="no flow (or 0)"))
+            handles.append(Line2D([], [], color=style.NODATA, linewidth=1.0, label="0 (no flow, not used)"))
         node_colour = style.INK
         if node_values is not None and edge_values is None:
             finite = np.isfinite(shown)
