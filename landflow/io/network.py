@@ -507,7 +507,9 @@ def read_zones(network, *, column=None, features=None, layer=None, id_column="id
     features : str or Path, optional
         A vector file of points (each the nearest node within
         ``snap_distance``) or polygons (every node inside or on the boundary).
-        Its CRS must be the network's.
+        Its CRS must be the network's. Features with an empty or 0 id are
+        skipped, so a layer of all the network's nodes with a zone column
+        works too.
     layer, id_column, weight_column : for ``features``.
     snap_distance : float
         Map units; needed for points.
@@ -547,8 +549,13 @@ def read_zones(network, *, column=None, features=None, layer=None, id_column="id
     if id_column not in frame.columns:
         raise InputError(f"{where}: no column {id_column!r} ([zones] id_column); found "
                          f"{', '.join(map(repr, [c for c in frame.columns if c != frame.geometry.name]))}.")
+    # a node layer: points with an empty or 0 id are nodes of no zone
+    ident = frame[id_column]
+    text = ident.astype("string").str.strip()
+    frame = frame[~(ident.isna() | (text == "") | (text == "0")).to_numpy()]
     if len(frame) == 0:
-        raise InputError(f"{where}: the layer holds no features; zones need at least two.")
+        raise InputError(f"{where}: the layer holds no features with a zone id in {id_column!r}; zones need at least "
+                         "two.")
     if not network.has_coordinates:
         raise InputError(f"{where}: zones from points or polygons need node coordinates, but the network has none; "
                          "give the node table x and y, or use [zones] column.")

@@ -187,7 +187,8 @@ SECTIONS = {
         "column": Key(str, None, "column of the node table ([network] nodes) holding each node's zone id "
                                  "(whole numbers > 0 or text; 0 or empty for none)", example="town"),
         "features": Key(str, None, "vector file of points (each snaps to the nearest node within "
-                                   "'snap_distance') or polygons (every node inside), in the network's CRS",
+                                   "'snap_distance') or polygons (every node inside), in the network's CRS; "
+                                   "features with an empty or 0 id are skipped (a layer of every node works)",
                         path="input", example="towns.gpkg"),
         "layer": Key(str, None, "layer of 'features' to read (needed when the file has several)"),
         "id_column": Key(str, None, "column of 'features' holding each zone's id: whole numbers > 0 or text "

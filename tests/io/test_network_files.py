@@ -353,3 +353,14 @@ def test_network_only_analysis_is_refused_on_a_raster(tmp_path):
     with pytest.raises(ConfigError, match=r"\[analyses.edge_criticality\] needs a network: it ranks the edges of a "
                                           "network; on a raster, corridor_ranking ranks the links"):
         load_study(tmp_path / "study.toml")
+
+
+def test_node_layer_with_a_zone_column(tmp_path):
+    # a point layer of the network's nodes whose zone column is empty (or 0) outside the zones
+    network = read_network(lines(tmp_path, [[(0, 0), (100, 0)], [(100, 0), (200, 0)]], cost=[1.0, 1.0]),
+                           resistance_column="cost")
+    frame = gpd.GeoDataFrame({"town": ["Upton", None, "Downey"], "geometry": [shapely.Point(0, 0), shapely.Point(100, 0),
+                                                                            shapely.Point(200, 0)]}, crs=CRS)
+    frame.to_file(tmp_path / "nodes.gpkg", engine="pyogrio")
+    zones = read_zones(network, features=tmp_path / "nodes.gpkg", id_column="town", snap_distance=0.5)
+    assert zones.labels.tolist() == [[2, 0, 1]] and zones.names == {1: "Downey", 2: "Upton"}
