@@ -9,7 +9,7 @@ import numpy as np
 
 from . import style
 from ._frame import MapGeometry, _halo, describe_crs, finish_map, new_map
-from ._quicklook import _format_tick, colour_scale
+from ._quicklook import colour_scale, tick_labels
 
 __all__ = ["network_map", "render_network_map"]
 
@@ -117,7 +117,7 @@ def render_network_map(x, y, lines, *, node_values=None, edge_values=None, kind=
                 bar.outline.set_linewidth(0.5)
                 if kind in ("log", "change") and ticks is not None:
                     bar.ax.minorticks_off()
-                    bar.set_ticks(ticks, labels=[_format_tick(t) for t in ticks])
+                    bar.set_ticks(ticks, labels=tick_labels(ticks))
                 elif kind == "count" and ticks is not None:
                     bar.set_ticks(ticks, labels=[str(int(t)) for t in ticks])
                     bar.ax.minorticks_off()

@@ -77,7 +77,8 @@ def colour_scale(values, kind, *, classes=None):
             lo, hi = np.percentile(positive, [1, 99.9])
             if hi > lo > 0:
                 decades = np.log10(hi / lo)
-                subs = (1.0, 2.0, 5.0) if decades > 2 else np.arange(1.0, 10.0)
+                # at most about 10 ticks: powers of ten over many decades, 1-2-5 over a few, 1 to 9 within one
+                subs = (1.0,) if decades > 3 else (1.0, 2.0, 5.0) if decades > 1 else np.arange(1.0, 10.0)
                 ticks = LogLocator(base=10, subs=subs).tick_values(lo, hi)
                 ticks = ticks[(ticks >= lo) & (ticks <= hi)]
                 if ticks.size < 3:  # under a decade: round linear steps read better than powers of ten
@@ -125,15 +126,28 @@ def _round_down(value):
     return float(np.floor(value / power * (1 + 1e-12)) * power)
 
 
-def _format_tick(value):
+def tick_labels(ticks):
+    """Labels for a colour bar's ticks, all in one notation: plain numbers (thin-space thousands) when every
+    tick lies between 1e-3 and 1e7, else powers of ten for all of them, so that "9 000 000" never stands
+    beside "1e7"."""
+    ticks = np.asarray(ticks, dtype=float)
+    nonzero = np.abs(ticks[ticks != 0])
+    plain = nonzero.size == 0 or (nonzero.min() >= 1e-3 and nonzero.max() < 1e7)
+    return [_format_tick(t, plain) for t in ticks]
+
+
+def _format_tick(value, plain=True):
     if value == 0:
         return "0"
-    magnitude = abs(value)
-    if 1 <= magnitude < 1e7 and float(value).is_integer():
+    if plain and float(value).is_integer():
         return f"{value:,.0f}".replace(",", "\u2009")
-    if 1e-3 <= magnitude < 1e7:
+    if plain:
         return f"{value:,.6g}".replace(",", "\u2009")
-    return f"{value:.2g}".replace("e-0", "e-").replace("e+0", "e")
+    exponent = int(np.floor(np.log10(abs(value))))
+    mantissa = float(f"{value / 10.0 ** exponent:.2g}")
+    if abs(mantissa) >= 10:  # rounding carried into the next power
+        mantissa, exponent = mantissa / 10, exponent + 1
+    return f"{mantissa:g}e{exponent}"
 
 
 def render_quicklook(array, geometry, *, kind="magnitude", title="", units="", patches=None, patch_names=None,
@@ -252,7 +266,7 @@ def render_quicklook(array, geometry, *, kind="magnitude", title="", units="", p
             bar.outline.set_linewidth(0.5)
             if kind in ("log", "change") and ticks is not None:
                 bar.ax.minorticks_off()
-                bar.set_ticks(ticks, labels=[_format_tick(t) for t in ticks])
+                bar.set_ticks(ticks, labels=tick_labels(ticks))
             elif kind == "count":
                 bar.set_ticks(ticks, labels=[str(int(t)) for t in ticks])
                 bar.ax.minorticks_off()

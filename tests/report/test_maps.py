@@ -12,6 +12,7 @@ from landflow.grid import Grid
 from landflow.maps import (MapGeometry, block_reduce, colour_scale, new_map, patch_anchors, place_labels,
                            render_quicklook, scale_bar_length, style)
 from landflow.maps._frame import draw_patches, draw_scale_bar
+from landflow.maps._quicklook import tick_labels
 from landflow.maps.charts import cluster_order
 
 
@@ -140,6 +141,15 @@ def test_log_scale_has_readable_ticks():
         values = np.geomspace(lo, hi, 500)
         _, norm, ticks, _ = colour_scale(values, "log")
         assert len(ticks) >= 3 and ticks.min() >= norm.vmin * (1 - 1e-9) and ticks.max() <= norm.vmax * (1 + 1e-9)
+
+
+@pytest.mark.parametrize("lo, hi", [(1.6e6, 6.5e7), (3.0, 2e5), (1e-4, 1e8), (12.0, 40.0)])
+def test_log_scale_ticks_are_few_and_in_one_notation(lo, hi):
+    _, _, ticks, _ = colour_scale(np.geomspace(lo, hi, 500), "log")
+    labels = tick_labels(ticks)
+    assert 3 <= len(ticks) <= 12
+    # one notation per bar: no "9 000 000" beside "1e7"
+    assert len({"e" in label for label in labels}) == 1
 
 
 def test_counts_get_whole_number_classes():
