@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import base64
 import json
+import re
 from pathlib import Path
 
 import numpy as np
@@ -132,6 +133,15 @@ _ANALYSIS_TITLES = {
     "expected_visits": "Expected visits",
     "walk_simulation": "Simulated walkers against the exact values",
 }
+
+
+_NETWORK_WORDS = {"patch": "zone", "patches": "zones", "Patch": "Zone", "Patches": "Zones",
+                  "landscape": "network"}
+
+
+def _network_words(text):
+    """A title or caption in a network study's words: zones for patches, the network for the landscape."""
+    return re.sub(r"\b(" + "|".join(_NETWORK_WORDS) + r")\b", lambda m: _NETWORK_WORDS[m.group(1)], text)
 
 
 def _read_csv(folder, manifest, name):
@@ -315,6 +325,7 @@ def build_html(folder, manifest):
     from .maps import charts, style
     folder = Path(folder)
     land = manifest["landscape"]
+    words = _network_words if land.get("network") else str
     settings = manifest.get("settings", {})
     names = list(settings.get("analyses", {}).keys())
     charts_by = _charts(folder, manifest)
@@ -324,14 +335,16 @@ def build_html(folder, manifest):
     sections = []
     for name in names:
         outputs = [o for o in manifest["outputs"] if o.get("analysis") == name]
-        maps = [{"src": _data_uri(folder / o["file"]), "caption": o["description"].removeprefix("quick-look picture: "),
+        maps = [{"src": _data_uri(folder / o["file"]),
+                 "caption": words(o["description"].removeprefix("quick-look picture: ")),
                  "file": o["file"], "units": o["units"]}
                 for o in outputs if o["file"].endswith(".png") and (folder / o["file"]).is_file()]
-        sections.append({"id": name, "title": _ANALYSIS_TITLES.get(name, name.replace("_", " ").capitalize()),
+        sections.append({"id": name, "title": words(_ANALYSIS_TITLES.get(name, name.replace("_", " ").capitalize())),
                          "numbers": [(k, summary[k]) for k in by_analysis.get(name, []) if k in summary]
                          + derived.get(name, []),
                          "maps": maps, "charts": charts_by.get(name, []),
-                         "files": [o for o in outputs if not o["file"].endswith(".png")]})
+                         "files": [{**o, "description": words(o["description"])} for o in outputs
+                                   if not o["file"].endswith(".png")]})
     loose = [o for o in manifest["outputs"] if "analysis" not in o and o["file"].endswith(".png")
              and (folder / o["file"]).is_file()]
     if loose:  # a manifest from before outputs named their analysis
@@ -362,7 +375,8 @@ def build_html(folder, manifest):
         key_numbers=list(summary.items()),
         pair_header=header, pair_rows=rows, ranked=ranked, warnings=manifest.get("warnings", []),
         timeline=charts.timeline(stages) if stages else None,
-        outputs=manifest["outputs"], total=manifest.get("timings_seconds", {}).get("total"))
+        outputs=[{**o, "description": words(o["description"])} for o in manifest["outputs"]],
+        total=manifest.get("timings_seconds", {}).get("total"))
 
 
 def _stages_from_timings(timings):

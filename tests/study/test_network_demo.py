@@ -47,4 +47,8 @@ def test_demo_study_runs_from_the_command_line(tmp_path):
     # 4.5 binomial standard errors unless the exact solve and the walk disagree)
     simulated = pd.read_csv(out / "walk_simulation_arrival.csv")
     assert simulated["difference_in_standard_errors"].abs().max() < 4.5
-    assert (out / "current_density.png").is_file() and "Millford" in (out / "report.html").read_text()
+    page = (out / "report.html").read_text()
+    assert (out / "current_density.png").is_file() and "Millford" in page
+    # the page speaks of zones and the network, not of patches and a landscape
+    assert "Effective resistance between zones" in page and "between patches" not in page
+    assert "What-if: the changed network" in page
