@@ -461,8 +461,12 @@ def protected_paths(study):
 def _check_steps(ctx):
     """Let each requested step validate its settings against the inputs before any step runs."""
     from .steps import ANALYSES
+    from .steps._patch_settings import with_patch_codes
     ctx.mortality  # reads and checks the [mortality] input, if any
-    for name, settings in ctx.study.analyses.items():
+    ctx.step_settings = {name: with_patch_codes(ANALYSES[name].SETTINGS, settings, ctx.patches, f"analyses.{name}",
+                                               ctx.study.path)
+                         for name, settings in ctx.study.analyses.items()}
+    for name, settings in ctx.step_settings.items():
         check = getattr(ANALYSES[name], "check", None)
         if check is not None:
             check(ctx, settings)
@@ -517,7 +521,7 @@ def run_study(study):
             ctx.write_raster("resistance_from_suitability.tif", np.where(ctx.grid.mask, ctx.grid.values, np.nan),
                              per_node=False, units="resistance per map unit",
                              description="resistance made from the suitability raster by the study's transform")
-        for name, settings in study.analyses.items():
+        for name, settings in ctx.step_settings.items():
             ctx.step, before = name, set(ctx.summary)
             with ctx.timed(name):
                 ANALYSES[name].run(ctx, settings)

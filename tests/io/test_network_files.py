@@ -364,3 +364,37 @@ def test_node_layer_with_a_zone_column(tmp_path):
     frame.to_file(tmp_path / "nodes.gpkg", engine="pyogrio")
     zones = read_zones(network, features=tmp_path / "nodes.gpkg", id_column="town", snap_distance=0.5)
     assert zones.labels.tolist() == [[2, 0, 1]] and zones.names == {1: "Downey", 2: "Upton"}
+
+
+# -- zones named by their text ids in analysis settings -------------------------------------------------------
+def row_of_three_roads(tmp_path, analyses):
+    """Three unit roads in a row, towns West and East at the two ends (codes: East 1, West 2, sorted)."""
+    lines(tmp_path, [[(0, 0), (100, 0)], [(100, 0), (200, 0)], [(200, 0), (300, 0)]], cost=[1.0, 1.0, 1.0])
+    points(tmp_path, [(0, 0), (300, 0)], ["West", "East"])
+    return study(tmp_path, network='edges = "roads.gpkg"\nresistance_column = "cost"',
+                 zones='features = "towns.gpkg"\nsnap_distance = 5.0', analyses=analyses)
+
+
+def test_zones_can_be_named_by_their_text_ids(tmp_path):
+    path = row_of_three_roads(tmp_path, '[analyses.hitting_probability]\npairs = [["West", "East"]]\n')
+    manifest = lf.run_study(path)
+    assert "pair_maps/1-2/hitting_probability_2_before_1.png" in [o["file"] for o in manifest["outputs"]]
+    nodes = pd.read_csv(tmp_path / "out" / "network_nodes.csv")
+    # gambler's ruin with fair steps: P(reach West before East) from i steps east of West is 1 - i/3
+    # (Feller 1968, An Introduction to Probability Theory and Its Applications, vol. 1, ch. XIV)
+    assert nodes["hitting_probability_2_before_1"].tolist() == pytest.approx([1, 2 / 3, 1 / 3, 0], abs=1e-12)
+
+
+def test_a_misspelt_zone_name_gets_the_close_match(tmp_path):
+    path = row_of_three_roads(tmp_path, '[analyses.hitting_probability]\npairs = [["Wesst", "East"]]\n')
+    with pytest.raises(ConfigError, match=r"'analyses.hitting_probability.pairs' names 'Wesst', which is no patch "
+                                          r"id. Did you mean 'West'\? The patches of .*towns.gpkg are 'East', 'West'"):
+        lf.run_study(path)
+
+
+def test_text_ids_for_patches_with_numeric_ids_are_refused(tmp_path):
+    square(tmp_path)
+    path = study(tmp_path, analyses='[analyses.walk_simulation]\nrelease_patches = ["a"]\n')
+    with pytest.raises(ConfigError, match=r"'analyses.walk_simulation.release_patches' names 'a', but the patches "
+                                          r"of .* have numeric ids; name them by number"):
+        lf.run_study(path)

@@ -50,8 +50,9 @@ def test_share_outside_unit_interval(folder, key, value):
 
 
 @pytest.mark.parametrize("pairs, message", [
-    ([[1]], r"each pair must be a list of two patch labels such as \[1, 2\]"),
-    ([[1, "b"]], r"each pair must be a list of two patch labels"),
+    ([[1]], r"each pair must be a list of two patch ids such as \[1, 2\]"),
+    ([[1, 2.5]], r"each pair must be a list of two patch ids"),
+    ([[1, ""]], r"each pair must be a list of two patch ids"),
     ([[2, 2]], r"the pair \[2, 2\] names the same patch twice; a pair needs two different patches"),
 ])
 def test_malformed_pairs(folder, pairs, message):
