@@ -8,9 +8,13 @@ from pathlib import Path
 
 @contextlib.contextmanager
 def atomic_path(path):
-    """Yield a temporary name beside ``path``; rename it to ``path`` only on success."""
+    """Yield a temporary name beside ``path``; rename it to ``path`` only on success.
+
+    The temporary name keeps the file's extension (``.map_layers.partial-PID.gpkg``), which drivers
+    such as GDAL's GeoPackage writer check.
+    """
     path = Path(path)
-    tmp = path.with_name(f".{path.name}.partial-{os.getpid()}")
+    tmp = path.with_name(f".{path.stem}.partial-{os.getpid()}{path.suffix}")
     try:
         yield tmp
         os.replace(tmp, path)

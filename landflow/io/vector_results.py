@@ -8,7 +8,6 @@ The functions here turn plain tables and grids into GeoDataFrames
 
 from __future__ import annotations
 
-import warnings
 
 import numpy as np
 import pandas as pd
@@ -110,8 +109,7 @@ def write_geopackage(path, layers):
     level = quiet.level
     quiet.setLevel(logging.WARNING)       # not one INFO line per layer in the run's log
     try:
-        with atomic_path(path) as tmp, warnings.catch_warnings():
-            warnings.filterwarnings("ignore", message=".*extension.*")
+        with atomic_path(path) as tmp:
             for name, frame in layers.items():
                 frame = frame.copy()
                 for col in frame.columns:
