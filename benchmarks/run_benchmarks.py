@@ -170,9 +170,27 @@ def _factor(matrix, engine):
             b2 = b.reshape(b.shape[0], -1)
             return np.column_stack([ml.solve(col, tol=1e-8, accel="cg", maxiter=500) for col in b2.T]).reshape(b.shape)
         return solve, time.perf_counter() - start
+    if engine == "cholmod":
+        from cvxopt import cholmod, matrix as dense, spmatrix
+        lower = sp.tril(matrix, format="csc")
+        columns = np.repeat(np.arange(lower.shape[1]), np.diff(lower.indptr))
+        system = spmatrix(dense(lower.data), dense(lower.indices.astype(np.int64)), dense(columns), lower.shape)
+        del lower, columns
+        factor = cholmod.symbolic(system)
+        cholmod.numeric(system, factor)
+        del system
+        def solve(b):
+            x = dense(np.asfortranarray(b))
+            cholmod.solve(factor, x)
+            return np.asarray(x)
+        return solve, time.perf_counter() - start
+    from threadpoolctl import threadpool_limits
     spec = "NATURAL" if engine == "superlu-nd" else "MMD_AT_PLUS_A"
     lu = sla.splu(matrix.tocsc(), permc_spec=spec, diag_pivot_thresh=0.0, options={"SymmetricMode": True})
-    return lu.solve, time.perf_counter() - start
+    def solve(b):               # one BLAS thread, as landflow's SuperLU solves (landflow.solve._one_blas_thread)
+        with threadpool_limits(limits=1, user_api="blas"):
+            return lu.solve(b)
+    return solve, time.perf_counter() - start
 
 
 def worker_bare(folder, engine):
@@ -186,7 +204,7 @@ def worker_bare(folder, engine):
     sub = lap[keep][:, keep]
     where = np.empty(n, np.int64)
     where[keep] = np.arange(keep.size)
-    rhs = np.zeros((keep.size, k - 1))
+    rhs = np.zeros((keep.size, k - 1), order="F")
     rhs[where[np.arange(1, k)], np.arange(k - 1)] = 1.0
     del lap
     start = time.perf_counter()

@@ -32,6 +32,7 @@ keeps the worst one and raises :class:`SolverError` past its tolerance.
 
 from __future__ import annotations
 
+import contextlib
 import importlib.util
 import logging
 import os
@@ -72,6 +73,21 @@ DIRECT_MIN_RHS = 5
 
 #: Relative residual a direct solve may show before it counts as failed.
 DIRECT_RESIDUAL_LIMIT = 1e-6
+
+
+def _one_blas_thread():
+    """A context in which the BLAS libraries loaded (OpenBLAS, MKL) run on one thread (threadpoolctl).
+
+    SuperLU's solves with a block of right-hand sides call BLAS on one small supernode at a time. With the
+    default of one BLAS thread per core, those threads wait for each other on every call, and when the
+    cores are busy with other work the block of 19 solves of the 1000 x 1000 benchmark took 2 to 12 s
+    instead of 1.0 to 1.4 s on one thread (docs/performance.md). Without threadpoolctl this does nothing.
+    """
+    try:
+        from threadpoolctl import threadpool_limits
+    except ImportError:                 # pragma: no cover - threadpoolctl is a dependency
+        return contextlib.nullcontext()
+    return threadpool_limits(limits=1, user_api="blas")
 
 
 _SINGULAR = ("The system is singular: some part of the graph is not tied to a grounded node "
@@ -198,13 +214,13 @@ class Solver:
             if ordering is not None:
                 ordering = _check_ordering(ordering, matrix.shape[0])
                 if np.array_equal(ordering, np.arange(ordering.size)):
-                    permuted = matrix.tocsc()       # already in the wanted order: no copy of the permutation
+                    permuted = _symmetric_csc(matrix)   # already in the wanted order: no copy of the permutation
                 else:
                     self.ordering = ordering
-                    permuted = matrix[ordering][:, ordering].tocsc()
+                    permuted = _symmetric_csc(matrix[ordering][:, ordering])
                 spec = "NATURAL"
             else:
-                permuted, spec = matrix.tocsc(), "MMD_AT_PLUS_A"
+                permuted, spec = _symmetric_csc(matrix), "MMD_AT_PLUS_A"
             try:
                 self._lu = sla.splu(permuted, permc_spec=spec,
                                     diag_pivot_thresh=0.0, options={"SymmetricMode": True})
@@ -243,11 +259,12 @@ class Solver:
         b = np.asarray(b, dtype=np.float64)
         start = time.perf_counter()
         if self.engine == "superlu":
-            if self.ordering is None:
-                x = self._lu.solve(b)
-            else:
-                x = np.empty_like(b)
-                x[self.ordering] = self._lu.solve(b[self.ordering])
+            with _one_blas_thread():
+                if self.ordering is None:
+                    x = self._lu.solve(b)
+                else:
+                    x = np.empty_like(b)
+                    x[self.ordering] = self._lu.solve(b[self.ordering])
             limit = max(DIRECT_RESIDUAL_LIMIT, self.tolerance)
         elif self.engine == "pardiso":
             x = np.asarray(self._pardiso.solve(self._upper, b)).reshape(b.shape)
@@ -345,7 +362,7 @@ def _multigrid_hierarchy(matrix):
             np.random.set_state(state)
 
 
-def factorize(matrix, *, method="auto", tolerance=1e-8, n_rhs=1, ordering=None):
+def factorize(matrix, *, method="auto", tolerance=1e-8, n_rhs=1, ordering=None, pieces_grounded=False):
     """Prepare a symmetric positive definite sparse system for repeated solves.
 
     Parameters
@@ -364,6 +381,10 @@ def factorize(matrix, *, method="auto", tolerance=1e-8, n_rhs=1, ordering=None):
     ordering : ndarray of int, shape (n,), optional
         A fill-reducing permutation for the SuperLU engine: unknown
         ``ordering[i]`` is eliminated i-th. Ignored by the other engines.
+    pieces_grounded : bool
+        The caller knows that every connected piece of the system has a row tied to ground (as for a
+        connected graph with one node grounded), which skips the search for loose pieces (a
+        connected-components pass); the diagonal is checked all the same.
 
     Returns
     -------
@@ -398,11 +419,11 @@ def factorize(matrix, *, method="auto", tolerance=1e-8, n_rhs=1, ordering=None):
             raise SolverError(f"solver method '{engine}' needs the optional package {package} "
                               "(pip install 'landflow[fast]'); use 'direct' or 'superlu' instead.")
     matrix = sp.csr_array(matrix)
-    _check_grounded(matrix)
+    _check_grounded(matrix, pieces=not pieces_grounded)
     return Solver(matrix, method, tolerance, engine=engine, ordering=ordering)
 
 
-def _check_grounded(matrix):
+def _check_grounded(matrix, pieces=True):
     """Refuse a system with a connected piece that no node ties to ground, from its structure alone.
 
     A grounded Laplacian is a symmetric M-matrix whose row sums are the
@@ -424,8 +445,10 @@ def _check_grounded(matrix):
             int(np.flatnonzero(~np.isfinite(diagonal))[0])
         raise SolverError(f"the system's unknown {row} has diagonal {float(diagonal[row])!r}; a grounded Laplacian "
                           f"needs a positive, finite diagonal. {_SINGULAR}")
-    excess = diagonal - (abs(matrix).sum(axis=1) - diagonal)
-    tied = excess > 1e-12 * diagonal
+    if not pieces:
+        return
+    off_diagonal = np.add.reduceat(np.abs(matrix.data), matrix.indptr[:-1]) - diagonal   # rows are never empty
+    tied = diagonal - off_diagonal > 1e-12 * diagonal
     if tied.all():
         return
     count, piece = connected_components(matrix, directed=False)
@@ -456,15 +479,32 @@ def _check_ordering(ordering, n):
     return ordering
 
 
+def _symmetric_csc(matrix):
+    """The CSC form of a symmetric CSR matrix without a transposed copy: its rows read as columns.
+
+    Indices are sorted (in place, a no-op when they already are), as SuperLU expects.
+    """
+    if matrix.format == "csc":
+        return matrix
+    csc = sp.csc_matrix((matrix.data, matrix.indices, matrix.indptr), shape=matrix.shape)
+    csc.sort_indices()
+    return csc
+
+
 def _relative_residual(matrix, x, b):
     """The worst relative residual ||b - A x|| / ||b|| over the columns of b (the absolute one where b = 0).
 
     Column by column, so that a badly solved right-hand side is not averaged away by well solved ones.
+    Column-major blocks (as the direct engines return them) go one contiguous column at a time, others
+    through one sparse product for the whole block.
     """
-    if x.ndim == 1:
-        norm_r = np.atleast_1d(np.linalg.norm(b - matrix @ x))
-    else:   # one product per column: no copy of a column-major solution into row-major order
+    if x.ndim == 2 and x.flags.f_contiguous and b.flags.f_contiguous:    # contiguous columns: one product each
         norm_r = np.array([np.linalg.norm(b[:, j] - matrix @ x[:, j]) for j in range(x.shape[1])])
+    else:
+        r = matrix @ x
+        r -= b
+        norm_r = np.atleast_1d(np.sqrt(np.einsum("i...,i...->...", r, r)))
+        del r
     norm_b = np.atleast_1d(np.linalg.norm(b, axis=0))
     relative = np.divide(norm_r, norm_b, out=norm_r.copy(), where=norm_b > 0)
     return float(relative.max()) if relative.size else 0.0
