@@ -148,8 +148,8 @@ def _load_system(folder):
     return lap, n, k
 
 
-def _factor(matrix, engine):
-    """(solve function, seconds) for a grounded SPD matrix, with scipy or pypardiso only."""
+def _factor(matrix, engine, ordering=None):
+    """(solve function, seconds) for a grounded SPD matrix, with scipy, cvxopt or pypardiso only."""
     import scipy.sparse as sp
     import scipy.sparse.linalg as sla
     start = time.perf_counter()
@@ -170,19 +170,25 @@ def _factor(matrix, engine):
             b2 = b.reshape(b.shape[0], -1)
             return np.column_stack([ml.solve(col, tol=1e-8, accel="cg", maxiter=500) for col in b2.T]).reshape(b.shape)
         return solve, time.perf_counter() - start
-    if engine == "cholmod":
+    if engine == "cholmod":                     # in the given order, sparse right-hand sides: as landflow
         from cvxopt import cholmod, matrix as dense, spmatrix
         lower = sp.tril(matrix, format="csc")
         columns = np.repeat(np.arange(lower.shape[1]), np.diff(lower.indptr))
         system = spmatrix(dense(lower.data), dense(lower.indices.astype(np.int64)), dense(columns), lower.shape)
         del lower, columns
-        factor = cholmod.symbolic(system)
+        if ordering is not None:
+            cholmod.options["nmethods"] = 1
+            factor = cholmod.symbolic(system, p=dense(ordering.astype(np.int64), tc="i"))
+        else:
+            factor = cholmod.symbolic(system)
         cholmod.numeric(system, factor)
         del system
         def solve(b):
-            x = dense(np.asfortranarray(b))
-            cholmod.solve(factor, x)
-            return np.asarray(x)
+            b2 = b.reshape(b.shape[0], -1)
+            rows, cols = np.nonzero(b2)
+            x = cholmod.spsolve(factor, spmatrix(dense(b2[rows, cols]), dense(rows.astype(np.int64)),
+                                                 dense(cols.astype(np.int64)), b2.shape))
+            return np.asarray(dense(x)).reshape(b.shape)
         return solve, time.perf_counter() - start
     from threadpoolctl import threadpool_limits
     spec = "NATURAL" if engine == "superlu-nd" else "MMD_AT_PLUS_A"
@@ -196,11 +202,15 @@ def _factor(matrix, engine):
 def worker_bare(folder, engine):
     """One factorisation plus k - 1 solves of the grounded system; scipy (or pypardiso) only."""
     lap, n, k = _load_system(folder)
+    ordering = None
     if engine == "superlu-nd":                     # same ordering as landflow, applied untimed
         order = np.load(Path(folder) / "order.npy")
         keep = order[order != 0]
     else:
         keep = np.arange(1, n)
+        if engine == "cholmod":                    # landflow's order, given to CHOLMOD
+            order = np.load(Path(folder) / "order.npy")
+            ordering = order[order != 0] - 1
     sub = lap[keep][:, keep]
     where = np.empty(n, np.int64)
     where[keep] = np.arange(keep.size)
@@ -208,7 +218,7 @@ def worker_bare(folder, engine):
     rhs[where[np.arange(1, k)], np.arange(k - 1)] = 1.0
     del lap
     start = time.perf_counter()
-    solve, factor_seconds = _factor(sub, engine)
+    solve, factor_seconds = _factor(sub, engine, ordering)
     t = time.perf_counter()
     x = solve(rhs)
     solve_seconds = time.perf_counter() - t
@@ -322,10 +332,44 @@ def run_best(args_, repeat):
     return best
 
 
+def install():
+    """Which direct engines this interpreter has: ``fast`` with cvxopt (CHOLMOD) or pypardiso, else ``plain``."""
+    from landflow.solve import direct_engine
+    return "plain" if direct_engine() == "superlu" else "fast"
+
+
+def _cpu_jiffies():
+    """(busy, total) CPU time of the whole machine so far, from /proc/stat, in seconds."""
+    try:
+        with open("/proc/stat") as fh:
+            fields = [int(x) for x in fh.readline().split()[1:]]
+    except (OSError, ValueError):
+        return None
+    tick = os.sysconf("SC_CLK_TCK")
+    idle = fields[3] + (fields[4] if len(fields) > 4 else 0)
+    return (sum(fields) - idle) / tick, sum(fields) / tick
+
+
+def _own_cpu():
+    own, kids = resource.getrusage(resource.RUSAGE_SELF), resource.getrusage(resource.RUSAGE_CHILDREN)
+    return own.ru_utime + own.ru_stime + kids.ru_utime + kids.ru_stime
+
+
+def load_during(start_cpu, start_own, start_wall):
+    """How busy the machine was with other work while a case ran: cores used by other processes on average."""
+    end = _cpu_jiffies()
+    if start_cpu is None or end is None:
+        return None
+    wall = time.monotonic() - start_wall
+    others = (end[0] - start_cpu[0]) - (_own_cpu() - start_own)
+    return max(0.0, others / wall) if wall > 0 else None
+
+
 def run_case(name, args):
     spec = CASES[name]
     folder = make_inputs(OUT / f"case_{name}", spec["n"], spec["k"])
-    result = {"case": name, **spec, "load_before": os.getloadavg(), "date": _now()}
+    result = {"case": name, **spec, "install": install(), "load_before": os.getloadavg(), "date": _now()}
+    cpu0, own0, wall0 = _cpu_jiffies(), _own_cpu(), time.monotonic()
     if not args.skip_bare or args.naive_pairs > 0:
         result["graph"] = run_worker("prepare", folder)
     result["auto"] = run_best(("landflow", folder, "auto"), args.repeat)
@@ -333,21 +377,22 @@ def run_case(name, args):
     if chosen.get("method") == "multigrid":
         engine = "multigrid"
     else:
-        engine = "pardiso" if chosen.get("engine", "pardiso" if have_pardiso() else "superlu") == "pardiso" else "superlu-nd"
+        engine = {"pardiso": "pardiso", "cholmod": "cholmod"}.get(chosen.get("engine"), "superlu-nd")
     result["engine"] = engine                       # the baselines use the engine landflow chose
     if name in ("1000", "1000k50") or args.all_engines:
-        other = "superlu" if engine == "pardiso" else None
+        other = "superlu" if engine in ("pardiso", "cholmod") else None
         if other:
             result["landflow_superlu"] = run_worker("landflow", folder, "superlu")
     if not args.skip_bare:
         result["bare_same"] = run_best(("bare", folder, engine), args.repeat)
-        if engine == "pardiso":
-            result["bare_superlu_nd"] = run_worker("bare", folder, "superlu-nd")
+        if engine in ("pardiso", "cholmod"):
+            result["bare_superlu_nd"] = run_best(("bare", folder, "superlu-nd"), args.repeat)
         if spec["n"] <= 1000:
             result["bare_scipy"] = run_worker("bare", folder, "superlu-mmd")
     if args.naive_pairs > 0:
         result["naive"] = run_worker("naive", folder, engine, args.naive_pairs)
     result["load_after"] = os.getloadavg()
+    result["other_cores"] = load_during(cpu0, own0, wall0)
     for f in ("laplacian.npz", "order.npy"):
         (folder / f).unlink(missing_ok=True)
     return result
@@ -405,9 +450,14 @@ def _fmt_mb(x):
 
 def case_table(r):
     k, n = r["k"], r["n"]
-    lines = [f"### {n} x {n} cells, {k} patches ({k * (k - 1) // 2} pairs), measured {r['date']}", "",
+    variant = {"plain": "plain install (SuperLU)", "fast": "with the `fast` extra"}.get(r.get("install"), "")
+    others = r.get("other_cores")
+    lines = [f"### {n} x {n} cells, {k} patches ({k * (k - 1) // 2} pairs){', ' + variant if variant else ''}, "
+             f"measured {r['date']}", "",
              f"Load average before / after: {' '.join(f'{x:.1f}' for x in r['load_before'])} / "
-             f"{' '.join(f'{x:.1f}' for x in r.get('load_after', ()))} (2 cores, shared).", ""]
+             f"{' '.join(f'{x:.1f}' for x in r.get('load_after', ()))} (2 cores, shared)"
+             + (f"; other processes used {others:.2f} cores on average while the case ran" if others is not None
+                else "") + ".", ""]
     if "error" in r.get("auto", {}):
         lines.append(f"landflow run failed: {r['auto']['error']}")
         return lines
@@ -444,7 +494,8 @@ def case_table(r):
         lines.append(f"| landflow end to end, `method = \"superlu\"` | {_fmt_s(ls['wall'])} | {_fmt_mb(ls['peak_mb'])} "
                      f"| {base / ls['wall']:.2f} | solves {ls['timings'].get('solve', 0):.1f} s |")
     row("naive", f"naive: one grounded solve per pair ({r['engine']})")
-    row("bare_same", f"bare lower bound, same engine ({r['engine']}, no landflow)")
+    row("bare_same", f"bare lower bound, same engine ({r['engine']}, no landflow)",
+        "same order and solve calls as landflow; excludes reading, graph, order, extraction, current, writing")
     row("bare_superlu_nd", "bare: scipy SuperLU in landflow's nested-dissection order")
     row("bare_scipy", "bare lower bound, scipy alone (SuperLU, its MMD ordering)")
     lines.append("")
@@ -495,7 +546,7 @@ def crossover_table(r):
 
 
 def write_doc(results):
-    order = ["crossover", "1000", "1000k50", "2000", "4000"]
+    order = ["crossover"] + [f"{c}{v}" for c in ("1000", "1000k50", "2000", "4000") for v in ("", "-fast")]
     body = [START, "", f"Machine: {machine()}.", ""]
     for name in order:
         if name in results:
@@ -538,7 +589,8 @@ def main(argv=None):
     if not args.report_only:
         for name in args.case or ["1000"]:
             print(f"case {name}", flush=True)
-            results[name] = run_crossover(args) if name == "crossover" else run_case(name, args)
+            key = name if name == "crossover" or install() == "plain" else f"{name}-fast"
+            results[key] = run_crossover(args) if name == "crossover" else run_case(name, args)
             RESULTS.write_text(json.dumps(results, indent=1))
     write_doc(results)
 

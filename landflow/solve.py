@@ -96,9 +96,14 @@ _SINGULAR = ("The system is singular: some part of the graph is not tied to a gr
 
 #: Bytes of a direct factor per unknown and per doubling of the unknowns, on a 2-D grid in a
 #: nested-dissection order (the factor holds O(n log n) numbers; George 1973). From the peaks measured
-#: at 4 million unknowns (docs/performance.md): SuperLU 8.2 GB (L and U), Pardiso 6.5 GB, CHOLMOD 4.4 GB,
-#: rounded up so that the estimate errs on the safe side.
-FACTOR_BYTES_PER_UNKNOWN_LOG2 = {"superlu": 100.0, "pardiso": 80.0, "cholmod": 60.0}
+#: at 4 million unknowns (docs/performance.md): SuperLU 8.2 GB (L and U), Pardiso 6.5 GB; CHOLMOD from
+#: its symbolic analysis in landflow's nested-dissection order (supernodal values and row indices:
+#: 31.6 bytes at 1 million unknowns); rounded up so that the estimate errs on the safe side.
+FACTOR_BYTES_PER_UNKNOWN_LOG2 = {"superlu": 100.0, "pardiso": 80.0, "cholmod": 36.0}
+
+#: Share of the memory available after CHOLMOD's symbolic analysis that its numeric factor may take
+#: (the rest is for the solves' blocks and the outputs); above it, ``auto`` falls back to multigrid.
+CHOLMOD_MEMORY_SHARE = 0.85
 
 
 def factor_bytes(n_unknowns, engine):
@@ -133,33 +138,45 @@ def choose_method(n_unknowns, n_rhs=1, *, memory=None, engine=None):
     beats multigrid set-up plus one CG solve per right-hand side at up to
     :data:`DIRECT_ALWAYS_UNKNOWNS` unknowns even for one right-hand side; up to
     :data:`DIRECT_MAX_UNKNOWNS` once there are :data:`DIRECT_MIN_RHS` or more;
-    above that bound the factor's memory (n log n) and time (n^1.5) outgrow
-    the machine and multigrid, linear in memory, takes over.
+    above that bound SuperLU's and Pardiso's factors (n log n memory, n^1.5
+    time) outgrow the machine and multigrid, linear in memory, takes over.
+    CHOLMOD's supernodal factorisation of 16 million unknowns took less time
+    than multigrid's set-up alone (docs/performance.md), so with ``engine``
+    ``"cholmod"`` the size bound does not apply and memory alone decides.
 
     With ``memory`` (bytes available), a direct factorisation is chosen only
     when its estimated size (:func:`factor_bytes` for ``engine``, default the
     engine ``direct`` would use) fits in 70 % of it, leaving room for the
     graph, the potentials and the outputs; otherwise multigrid, whose memory
-    grows linearly, and the reason is logged.
+    grows linearly, and the reason is logged. For CHOLMOD this is only a first
+    screen against all of the memory: its symbolic analysis gives the factor's
+    exact size before the numeric phase, which :func:`factorize` checks against
+    :data:`CHOLMOD_MEMORY_SHARE` of what is then available.
 
     Examples
     --------
-    >>> choose_method(1_000_000, 1), choose_method(4_000_000, 49), choose_method(4_000_000, 2)
-    ('direct', 'direct', 'multigrid')
-    >>> choose_method(16_000_000, 9)
-    'multigrid'
+    >>> choose_method(1_000_000, 1, engine="superlu"), choose_method(4_000_000, 49, engine="superlu")
+    ('direct', 'direct')
+    >>> choose_method(4_000_000, 2, engine="superlu"), choose_method(16_000_000, 9, engine="superlu")
+    ('multigrid', 'multigrid')
+    >>> choose_method(16_000_000, 9, engine="cholmod"), choose_method(16_000_000, 9, memory=8e9, engine="cholmod")
+    ('direct', 'multigrid')
     >>> choose_method(1_000_000, 19, memory=1e9, engine="superlu")
     'multigrid'
     """
-    wanted = "direct" if n_unknowns <= DIRECT_ALWAYS_UNKNOWNS or (
-        n_unknowns <= DIRECT_MAX_UNKNOWNS and n_rhs >= DIRECT_MIN_RHS) else "multigrid"
+    engine = engine or direct_engine()
+    if engine == "cholmod":
+        wanted = "direct"
+    else:
+        wanted = "direct" if n_unknowns <= DIRECT_ALWAYS_UNKNOWNS or (
+            n_unknowns <= DIRECT_MAX_UNKNOWNS and n_rhs >= DIRECT_MIN_RHS) else "multigrid"
     if wanted == "direct" and memory is not None:
-        engine = engine or direct_engine()
         need = factor_bytes(n_unknowns, engine)
-        if need > 0.7 * memory:
+        share = 1.0 if engine == "cholmod" else 0.7     # CHOLMOD's symbolic analysis checks again, exactly
+        if need > share * memory:
             log.info("solver: multigrid instead of a direct factorisation: the %s factor of %d unknowns would "
-                     "need about %.1f GB, more than 70%% of the %.1f GB available", engine, n_unknowns,
-                     need / 1e9, memory / 1e9)
+                     "need about %.1f GB, more than %d%% of the %.1f GB available", engine, n_unknowns,
+                     need / 1e9, round(100 * share), memory / 1e9)
             return "multigrid"
     return wanted
 
@@ -198,7 +215,7 @@ class Solver:
         CG iterations per right-hand side (multigrid only).
     """
 
-    def __init__(self, matrix, method, tolerance, *, engine=None, ordering=None):
+    def __init__(self, matrix, method, tolerance, *, engine=None, ordering=None, memory_share=None):
         self.matrix = matrix
         self.method = method
         self.engine = engine or ("pyamg" if method == "multigrid" else "superlu")
@@ -209,6 +226,7 @@ class Solver:
         self.solve_seconds = 0.0
         self.ordering = None
         self.factor_nonzeros = None
+        self.factor_size = {}
         start = time.perf_counter()
         if self.engine == "superlu":
             if ordering is not None:
@@ -242,7 +260,10 @@ class Solver:
             except Exception as exc:  # pypardiso raises its own error class on a failed phase
                 raise SolverError(f"direct factorisation (pardiso) failed: {exc}. {_SINGULAR}") from exc
         elif self.engine == "cholmod":
-            self._factor = _cholmod_factor(matrix)
+            if ordering is not None:
+                ordering = _check_ordering(ordering, matrix.shape[0])
+            self._factor, self.factor_size = _cholmod_factor(matrix, ordering, memory_share=memory_share)
+            self.factor_nonzeros = self.factor_size.get("nonzeros")
         else:
             self._ml = _multigrid_hierarchy(matrix.tocsr())
         self.setup_seconds = time.perf_counter() - start
@@ -270,10 +291,7 @@ class Solver:
             x = np.asarray(self._pardiso.solve(self._upper, b)).reshape(b.shape)
             limit = max(DIRECT_RESIDUAL_LIMIT, self.tolerance)
         elif self.engine == "cholmod":
-            from cvxopt import cholmod, matrix as dense
-            x = dense(np.asfortranarray(b.reshape(b.shape[0], -1)))
-            cholmod.solve(self._factor, x)
-            x = np.asarray(x).reshape(b.shape)
+            x = _cholmod_solve(self._factor, b)
             limit = max(DIRECT_RESIDUAL_LIMIT, self.tolerance)
         else:
             x = np.column_stack([self._cg(col) for col in b.reshape(b.shape[0], -1).T]).reshape(b.shape)
@@ -313,31 +331,150 @@ class Solver:
             out["cg_iterations_max"] = int(max(self.iterations))
         if self.factor_nonzeros is not None:
             out["factor_nonzeros"] = self.factor_nonzeros
+        for key in ("factor_bytes", "ordering", "supernodes"):
+            if key in self.factor_size:
+                out[f"factor_{key}" if key != "factor_bytes" else key] = self.factor_size[key]
         return out
 
 
-def _cholmod_factor(matrix):
+class _FactorTooLarge(SolverError):
+    """CHOLMOD's symbolic analysis found a factor larger than the memory allowed for it."""
+
+
+def _cholmod_factor(matrix, ordering=None, *, memory_share=None):
     """CHOLMOD's supernodal Cholesky factor of an SPD matrix, through cvxopt (the lower triangle is read).
 
-    CHOLMOD orders the unknowns itself (AMD or METIS-style nested dissection, chosen by its
-    symbolic analysis). Chen, Davis, Hager & Rajamanickam 2008, "Algorithm 887: CHOLMOD,
+    With ``ordering`` (a fill-reducing permutation, such as landflow's nested dissection) CHOLMOD uses
+    it as given; otherwise it orders the unknowns itself (AMD). Returns the factor and its size from the
+    symbolic analysis (:func:`_cholmod_size`). With ``memory_share``, a factor needing more than that
+    share of the memory available after the symbolic analysis raises :class:`_FactorTooLarge` before
+    the numeric phase allocates it. Chen, Davis, Hager & Rajamanickam 2008, "Algorithm 887: CHOLMOD,
     supernodal sparse Cholesky factorization and update/downdate", ACM TOMS 35:22,
     doi:10.1145/1391989.1391995.
     """
     from cvxopt import cholmod, matrix as dense, spmatrix
 
-    lower = sp.tril(matrix, format="csc")
-    lower.sort_indices()
+    lower = _lower_csc(matrix)
     columns = np.repeat(np.arange(lower.shape[1], dtype=np.int64), np.diff(lower.indptr))
-    system = spmatrix(dense(lower.data.astype(np.float64)), dense(lower.indices.astype(np.int64)),
-                      dense(columns), lower.shape)
+    system = spmatrix(dense(lower.data), dense(lower.indices.astype(np.int64)), dense(columns), lower.shape)
     del lower, columns
+    saved = dict(cholmod.options)
     try:
-        factor = cholmod.symbolic(system)
+        if ordering is not None:
+            cholmod.options["nmethods"] = 1          # the given order only, without also trying AMD
+            factor = cholmod.symbolic(system, p=dense(ordering.astype(np.int64), tc="i"))
+        else:
+            factor = cholmod.symbolic(system)
+    finally:
+        cholmod.options.clear()
+        cholmod.options.update(saved)
+    size = _cholmod_size(factor, matrix.shape[0])
+    if memory_share is not None and "factor_bytes" in size:
+        free = available_memory()
+        if free is not None and size["factor_bytes"] > memory_share * free:
+            raise _FactorTooLarge(f"the CHOLMOD factor of {matrix.shape[0]} unknowns needs "
+                                  f"{size['factor_bytes'] / 1e9:.1f} GB, more than {round(100 * memory_share)}% "
+                                  f"of the {free / 1e9:.1f} GB available")
+    try:
         cholmod.numeric(system, factor)
     except ArithmeticError as exc:      # not positive definite: a pivot <= 0
         raise SolverError(f"direct factorisation (cholmod) failed: {exc}. {_SINGULAR}") from None
-    return factor
+    return factor, size
+
+
+def _lower_csc(matrix):
+    """The lower triangle of a symmetric CSR matrix as CSC with sorted indices: its upper triangle's rows.
+
+    Row i of the upper triangle (columns >= i) is column i of the lower one, so no transposed copy is made
+    and only the kept entries are copied.
+    """
+    rows = np.repeat(np.arange(matrix.shape[0], dtype=matrix.indices.dtype), np.diff(matrix.indptr))
+    keep = matrix.indices >= rows
+    del rows
+    counts = np.add.reduceat(keep, matrix.indptr[:-1]) if matrix.nnz else np.zeros(matrix.shape[0], int)
+    indptr = np.concatenate([[0], np.cumsum(counts)])
+    lower = sp.csc_matrix((matrix.data[keep], matrix.indices[keep], indptr), shape=matrix.shape)
+    lower.sort_indices()
+    return lower
+
+
+#: Right-hand sides CHOLMOD solves at once as a sparse block (its supernodal solve works on blocks of
+#: columns with matrix-matrix products; cvxopt's dense solve goes one column at a time).
+_CHOLMOD_SPARSE_RHS = 0.01
+
+
+def _cholmod_solve(factor, b):
+    """x = A^-1 b with CHOLMOD's factor; b of shape (n,) or (n, m), float64. Returns x of b's shape.
+
+    Unit-current right-hand sides are sparse, and CHOLMOD's sparse solve (cholmod_spsolve) handles the
+    block's columns together, where cvxopt's dense solve loops over them one by one: about twice as fast
+    for 19 columns at a million unknowns. Dense right-hand sides use the dense solve.
+    """
+    from cvxopt import cholmod, matrix as dense, spmatrix
+
+    b2 = b.reshape(b.shape[0], -1)
+    n, m = b2.shape
+    rows, cols = np.nonzero(b2)
+    if rows.size > _CHOLMOD_SPARSE_RHS * n * m:
+        x = dense(np.asfortranarray(b2))
+        cholmod.solve(factor, x)
+        return np.asarray(x).reshape(b.shape)
+    block = spmatrix(dense(b2[rows, cols]), dense(rows.astype(np.int64)), dense(cols.astype(np.int64)), (n, m))
+    solution = cholmod.spsolve(factor, block)
+    del block
+    colptr, rowind, values = (np.asarray(a).ravel() for a in solution.CCS)
+    del solution
+    x = np.zeros((n, m), order="F")
+    if values.size == n * m:                    # every entry stored, in column order: the dense block itself
+        x.reshape(-1, order="F")[:] = values
+        if not np.array_equal(rowind[:n], np.arange(n)):     # not sorted within the column after all
+            x.fill(0.0)
+            x[rowind, np.repeat(np.arange(m), np.diff(colptr))] = values
+    else:
+        x[rowind, np.repeat(np.arange(m), np.diff(colptr))] = values
+    return x.reshape(b.shape)
+
+
+def _cholmod_size(factor, n):
+    """The size of a CHOLMOD factor from its symbolic analysis, read from CHOLMOD's factor structure.
+
+    cvxopt gives no access to it, so the fields are read with ctypes from the ``cholmod_factor`` the
+    capsule holds, whose leading fields have kept their layout since CHOLMOD 1.0 (n, minor, Perm,
+    ColCount, ..., nsuper, ssize, xsize, ..., ordering, is_ll, is_super, ..., itype). Returns
+    ``nonzeros`` (nonzeros of L, the sum of its column counts), ``factor_bytes`` (supernodal values
+    and row indices: 8 (xsize + ssize)), ``supernodes`` and ``ordering``; an empty dict when the
+    structure does not look as expected (another CHOLMOD build), so nothing wrong is ever recorded.
+    """
+    import ctypes
+
+    try:
+        name = ctypes.pythonapi.PyCapsule_GetName
+        name.restype, name.argtypes = ctypes.c_char_p, [ctypes.py_object]
+        pointer = ctypes.pythonapi.PyCapsule_GetPointer
+        pointer.restype, pointer.argtypes = ctypes.c_void_p, [ctypes.py_object, ctypes.c_char_p]
+        address = pointer(factor, name(factor))
+        sizes = (ctypes.c_size_t * 18).from_address(address)
+        flags = (ctypes.c_int * 5).from_address(address + 22 * ctypes.sizeof(ctypes.c_size_t))
+        colcount = ctypes.c_void_p.from_address(address + 3 * ctypes.sizeof(ctypes.c_size_t)).value
+        ordering, is_super, itype = flags[0], flags[2], flags[4]
+        if sizes[0] != n or itype not in (0, 2) or is_super not in (0, 1) or not colcount:
+            return {}
+        integer = ctypes.c_int64 if itype == 2 else ctypes.c_int32      # CHOLMOD_LONG or CHOLMOD_INT
+        counts = np.frombuffer((integer * n).from_address(colcount), dtype=np.dtype(integer))
+        nonzeros = int(counts.sum())
+        if not n <= nonzeros <= n * (n + 1) // 2:
+            return {}
+        out = {"nonzeros": nonzeros,
+               "ordering": {0: "natural", 1: "given", 2: "amd", 3: "metis", 4: "nesdis", 5: "colamd",
+                            6: "postordered"}.get(ordering, str(ordering))}
+        if is_super:
+            nsuper, ssize, xsize = sizes[13], sizes[14], sizes[15]
+            if nonzeros <= xsize <= 64 * nonzeros and 0 < nsuper <= n:
+                out["factor_bytes"] = int(8 * (xsize + ssize))
+                out["supernodes"] = int(nsuper)
+        return out
+    except (AttributeError, ValueError, TypeError, OSError):
+        return {}
 
 
 _SEED_LOCK = threading.Lock()
@@ -362,7 +499,8 @@ def _multigrid_hierarchy(matrix):
             np.random.set_state(state)
 
 
-def factorize(matrix, *, method="auto", tolerance=1e-8, n_rhs=1, ordering=None, pieces_grounded=False):
+def factorize(matrix, *, method="auto", tolerance=1e-8, n_rhs=1, ordering=None, pieces_grounded=False,
+              fallback=None):
     """Prepare a symmetric positive definite sparse system for repeated solves.
 
     Parameters
@@ -379,8 +517,12 @@ def factorize(matrix, *, method="auto", tolerance=1e-8, n_rhs=1, ordering=None, 
     n_rhs : int
         How many right-hand sides are expected; informs ``auto``.
     ordering : ndarray of int, shape (n,), optional
-        A fill-reducing permutation for the SuperLU engine: unknown
+        A fill-reducing permutation for the SuperLU and CHOLMOD engines: unknown
         ``ordering[i]`` is eliminated i-th. Ignored by the other engines.
+    fallback : bool, optional
+        Whether a CHOLMOD factor found too large for the memory by its symbolic analysis (more than
+        :data:`CHOLMOD_MEMORY_SHARE` of what is available) makes way for multigrid, with the reason
+        logged; default: when ``method`` is ``auto``. Callers that resolved ``auto`` themselves pass True.
     pieces_grounded : bool
         The caller knows that every connected piece of the system has a row tied to ground (as for a
         connected graph with one node grounded), which skips the search for loose pieces (a
@@ -407,6 +549,8 @@ def factorize(matrix, *, method="auto", tolerance=1e-8, n_rhs=1, ordering=None, 
         raise SolverError(f"solver method must be one of {', '.join(METHODS)}; got {method!r}.")
     if not 0.0 < tolerance < 1.0:
         raise SolverError(f"tolerance must be a relative residual between 0 and 1, such as 1e-8; got {tolerance!r}.")
+    if fallback is None:
+        fallback = method == "auto"
     if method == "auto":
         method = choose_method(matrix.shape[0], n_rhs, memory=available_memory())
     engine = None
@@ -420,6 +564,13 @@ def factorize(matrix, *, method="auto", tolerance=1e-8, n_rhs=1, ordering=None, 
                               "(pip install 'landflow[fast]'); use 'direct' or 'superlu' instead.")
     matrix = sp.csr_array(matrix)
     _check_grounded(matrix, pieces=not pieces_grounded)
+    if engine == "cholmod" and fallback:
+        try:
+            return Solver(matrix, method, tolerance, engine=engine, ordering=ordering,
+                          memory_share=CHOLMOD_MEMORY_SHARE)
+        except _FactorTooLarge as exc:
+            log.info("solver: multigrid instead of a direct factorisation: %s", exc)
+            return Solver(matrix, "multigrid", tolerance)
     return Solver(matrix, method, tolerance, engine=engine, ordering=ordering)
 
 

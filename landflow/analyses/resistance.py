@@ -91,39 +91,45 @@ def patch_voltages(graph, *, method="auto", tolerance=1e-8, progress=None):
                          "Add patches or check the patch labels.")
     comp = graph.components
     comp_of_patch = comp[:k]
+    # np.zeros takes its pages from the system only as they are written: after the factorisation
     potential = np.zeros((graph.n_nodes, k))
     laplacian = graph.laplacian()
     order = None
     solvers = []
-    for c in np.unique(comp_of_patch):
+    grounded = [c for c in np.unique(comp_of_patch) if np.count_nonzero(comp_of_patch == c) >= 2]
+    for c in grounded:
         members = np.flatnonzero(comp_of_patch == c)
-        if members.size < 2:
-            continue
         ground = members[0]
         n_unknowns = int(np.count_nonzero(comp == c)) - 1
         wanted = (choose_method(n_unknowns, members.size - 1, memory=available_memory())
                   if method == "auto" else method)
-        if wanted == "superlu" or wanted == "direct" and direct_engine() == "superlu":
+        engine = direct_engine() if wanted == "direct" else wanted
+        ordering = None
+        if engine in ("superlu", "cholmod") and order is None:
             # Unknowns in nested-dissection order: the factor is then far sparser than with
-            # SuperLU's own minimum-degree ordering on a grid (docs/performance.md).
-            if order is None:
-                order = nested_dissection_order(graph)
+            # SuperLU's own minimum-degree ordering on a grid, and CHOLMOD's symbolic analysis
+            # is faster than with its AMD ordering (docs/performance.md).
+            order = nested_dissection_order(graph)
+        if engine == "superlu":         # SuperLU gets the matrix already in that order
             keep = order[(comp[order] == c) & (order != ground)]
             ordering = np.arange(keep.size)
         else:
             keep = np.flatnonzero(comp == c)
             keep = keep[keep != ground]
-            ordering = None
+            if engine == "cholmod":     # CHOLMOD permutes the matrix itself
+                ordering = _positions(keep, order[(comp[order] == c) & (order != ground)])
         # the whole graph grounded at node 0, in natural order: a slice, without index arrays
-        sliced = keep.size == graph.n_nodes - 1 and ground == 0 and ordering is None
+        sliced = keep.size == graph.n_nodes - 1 and ground == 0 and engine != "superlu"
         rows = slice(1, None) if sliced else keep
         sub = laplacian[1:, 1:] if sliced else _symmetric_submatrix(laplacian, keep)
+        if c == grounded[-1]:
+            del laplacian               # the factorisation's peak comes without the whole Laplacian
         if progress:
             progress(f"solving component with {keep.size:,} unknowns and {members.size} patches")
         # Every piece of a connected component less one node touches that node, so the system is grounded
         # by construction and factorize need not look for loose pieces.
         solver = factorize(sub, method=wanted, tolerance=tolerance, n_rhs=members.size - 1, ordering=ordering,
-                           pieces_grounded=True)
+                           pieces_grounded=True, fallback=method == "auto")
         del sub
         position = _positions(keep, members[1:])
         # Right-hand sides go in blocks of about RHS_BLOCK_VALUES numbers, so that the
