@@ -207,7 +207,10 @@ class Solver:
     method : str
         ``"direct"`` or ``"multigrid"``.
     engine : str
-        ``"superlu"``, ``"pardiso"`` or ``"pyamg"``.
+        ``"superlu"``, ``"cholmod"``, ``"pardiso"`` or ``"pyamg"``.
+    n_unknowns : int
+    matrix : sparse matrix or None
+        The system, kept for the residual checks; None when ``factorize`` was given a ``product``.
     setup_seconds : float
     worst_residual : float
         The largest relative residual seen so far.
@@ -215,8 +218,9 @@ class Solver:
         CG iterations per right-hand side (multigrid only).
     """
 
-    def __init__(self, matrix, method, tolerance, *, engine=None, ordering=None, memory_share=None):
+    def __init__(self, matrix, method, tolerance, *, engine=None, ordering=None, memory_share=None, product=None):
         self.matrix = matrix
+        self.n_unknowns = int(matrix.shape[0])
         self.method = method
         self.engine = engine or ("pyamg" if method == "multigrid" else "superlu")
         self.tolerance = tolerance
@@ -267,9 +271,12 @@ class Solver:
         else:
             self._ml = _multigrid_hierarchy(matrix.tocsr())
         self.setup_seconds = time.perf_counter() - start
+        self._product = product
+        if product is not None and self.engine != "pyamg":
+            self.matrix = None          # the factor holds what the solves need; the residuals use product
 
     def __repr__(self):
-        return (f"Solver(method={self.method!r}, unknowns={self.matrix.shape[0]}, "
+        return (f"Solver(method={self.method!r}, unknowns={self.n_unknowns}, "
                 f"solved={self.n_solved}, worst_residual={self.worst_residual:.2e})")
 
     def solve(self, b):
@@ -296,7 +303,7 @@ class Solver:
         else:
             x = np.column_stack([self._cg(col) for col in b.reshape(b.shape[0], -1).T]).reshape(b.shape)
             limit = self.tolerance * 10  # CG stops on a preconditioned norm; allow that slack
-        residual = _relative_residual(self.matrix, x, b)
+        residual = _relative_residual(self._product or self.matrix, x, b)
         self.worst_residual = max(self.worst_residual, residual)
         self.n_solved += 1 if b.ndim == 1 else b.shape[1]
         self.solve_seconds += time.perf_counter() - start
@@ -324,7 +331,7 @@ class Solver:
 
     def record(self):
         """A JSON-ready summary for the manifest."""
-        out = {"method": self.method, "engine": self.engine, "unknowns": int(self.matrix.shape[0]),
+        out = {"method": self.method, "engine": self.engine, "unknowns": self.n_unknowns,
                "right_hand_sides": self.n_solved, "worst_relative_residual": float(self.worst_residual),
                "setup_seconds": round(self.setup_seconds, 3), "solve_seconds": round(self.solve_seconds, 3)}
         if self.iterations:
@@ -415,7 +422,7 @@ def _cholmod_solve(factor, b):
     b2 = b.reshape(b.shape[0], -1)
     n, m = b2.shape
     rows, cols = np.nonzero(b2)
-    if rows.size > _CHOLMOD_SPARSE_RHS * n * m:
+    if m == 1 or rows.size > _CHOLMOD_SPARSE_RHS * n * m:     # one column or dense: solved in place
         x = dense(np.asfortranarray(b2))
         cholmod.solve(factor, x)
         return np.asarray(x).reshape(b.shape)
@@ -500,7 +507,7 @@ def _multigrid_hierarchy(matrix):
 
 
 def factorize(matrix, *, method="auto", tolerance=1e-8, n_rhs=1, ordering=None, pieces_grounded=False,
-              fallback=None):
+              fallback=None, product=None):
     """Prepare a symmetric positive definite sparse system for repeated solves.
 
     Parameters
@@ -519,6 +526,10 @@ def factorize(matrix, *, method="auto", tolerance=1e-8, n_rhs=1, ordering=None, 
     ordering : ndarray of int, shape (n,), optional
         A fill-reducing permutation for the SuperLU and CHOLMOD engines: unknown
         ``ordering[i]`` is eliminated i-th. Ignored by the other engines.
+    product : callable, optional
+        ``product(x)`` returns ``matrix @ x`` for the residual checks; with it the solver keeps no
+        reference to ``matrix`` once factorised, so the caller can free it (a direct factor holds
+        its own copy of what the solves need). For large grids, where the matrix takes gigabytes.
     fallback : bool, optional
         Whether a CHOLMOD factor found too large for the memory by its symbolic analysis (more than
         :data:`CHOLMOD_MEMORY_SHARE` of what is available) makes way for multigrid, with the reason
@@ -567,11 +578,11 @@ def factorize(matrix, *, method="auto", tolerance=1e-8, n_rhs=1, ordering=None, 
     if engine == "cholmod" and fallback:
         try:
             return Solver(matrix, method, tolerance, engine=engine, ordering=ordering,
-                          memory_share=CHOLMOD_MEMORY_SHARE)
+                          memory_share=CHOLMOD_MEMORY_SHARE, product=product)
         except _FactorTooLarge as exc:
             log.info("solver: multigrid instead of a direct factorisation: %s", exc)
             return Solver(matrix, "multigrid", tolerance)
-    return Solver(matrix, method, tolerance, engine=engine, ordering=ordering)
+    return Solver(matrix, method, tolerance, engine=engine, ordering=ordering, product=product)
 
 
 def _check_grounded(matrix, pieces=True):
@@ -645,14 +656,16 @@ def _symmetric_csc(matrix):
 def _relative_residual(matrix, x, b):
     """The worst relative residual ||b - A x|| / ||b|| over the columns of b (the absolute one where b = 0).
 
+    ``matrix`` is A, or a function computing A x.
     Column by column, so that a badly solved right-hand side is not averaged away by well solved ones.
     Column-major blocks (as the direct engines return them) go one contiguous column at a time, others
     through one sparse product for the whole block.
     """
+    product = matrix if callable(matrix) else matrix.__matmul__
     if x.ndim == 2 and x.flags.f_contiguous and b.flags.f_contiguous:    # contiguous columns: one product each
-        norm_r = np.array([np.linalg.norm(b[:, j] - matrix @ x[:, j]) for j in range(x.shape[1])])
+        norm_r = np.array([np.linalg.norm(b[:, j] - product(x[:, j])) for j in range(x.shape[1])])
     else:
-        r = matrix @ x
+        r = product(x)
         r -= b
         norm_r = np.atleast_1d(np.sqrt(np.einsum("i...,i...->...", r, r)))
         del r

@@ -186,7 +186,7 @@ class TestErrors:
         solver = voltages.solvers[0]
         assert solver.record()["right_hand_sides"] == 1
         with pytest.raises(SolverError, match="was released after its solves"):
-            solver.solve(np.ones(solver.matrix.shape[0]))
+            solver.solve(np.ones(solver.n_unknowns))
 
     @pytest.mark.parametrize("engine, package", [("pardiso", "pypardiso"), ("cholmod", "cvxopt")])
     def test_engine_missing(self, monkeypatch, engine, package):
