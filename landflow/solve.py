@@ -218,9 +218,10 @@ class Solver:
         CG iterations per right-hand side (multigrid only).
     """
 
-    def __init__(self, matrix, method, tolerance, *, engine=None, ordering=None, memory_share=None, product=None):
+    def __init__(self, matrix, method, tolerance, *, engine=None, ordering=None, memory_share=None, product=None,
+                 cholmod_system=None):
         self.matrix = matrix
-        self.n_unknowns = int(matrix.shape[0])
+        self.n_unknowns = int(matrix.shape[0] if matrix is not None else cholmod_system.size[0])
         self.method = method
         self.engine = engine or ("pyamg" if method == "multigrid" else "superlu")
         self.tolerance = tolerance
@@ -265,8 +266,11 @@ class Solver:
                 raise SolverError(f"direct factorisation (pardiso) failed: {exc}. {_SINGULAR}") from exc
         elif self.engine == "cholmod":
             if ordering is not None:
-                ordering = _check_ordering(ordering, matrix.shape[0])
-            self._factor, self.factor_size = _cholmod_factor(matrix, ordering, memory_share=memory_share)
+                ordering = _check_ordering(ordering, self.n_unknowns)
+            if cholmod_system is None:
+                cholmod_system = _cholmod_system(matrix)
+            self._factor, self.factor_size = _cholmod_factor(cholmod_system, ordering, memory_share=memory_share)
+            del cholmod_system
             self.factor_nonzeros = self.factor_size.get("nonzeros")
         else:
             self._ml = _multigrid_hierarchy(matrix.tocsr())
@@ -348,8 +352,29 @@ class _FactorTooLarge(SolverError):
     """CHOLMOD's symbolic analysis found a factor larger than the memory allowed for it."""
 
 
-def _cholmod_factor(matrix, ordering=None, *, memory_share=None):
-    """CHOLMOD's supernodal Cholesky factor of an SPD matrix, through cvxopt (the lower triangle is read).
+def _cholmod_system(matrix):
+    """The lower triangle of a symmetric scipy matrix as the cvxopt sparse matrix CHOLMOD reads."""
+    from cvxopt import matrix as dense, spmatrix
+
+    lower = _lower_csc(matrix)
+    columns = np.repeat(np.arange(lower.shape[1], dtype=np.int64), np.diff(lower.indptr))
+    system = spmatrix(dense(lower.data), dense(lower.indices.astype(np.int64)), dense(columns), lower.shape)
+    del lower, columns
+    return system
+
+
+def _scipy_from_cholmod_system(system):
+    """The whole symmetric scipy matrix back from its lower triangle in cvxopt form (for a fall-back)."""
+    colptr, rowind, values = (np.asarray(a).ravel() for a in system.CCS)
+    n = system.size[0]
+    lower = sp.csc_array((values, rowind, colptr), shape=(n, n))
+    return sp.csr_array(lower + lower.T - sp.diags_array(lower.diagonal()))
+
+
+def _cholmod_factor(system, ordering=None, *, memory_share=None):
+    """CHOLMOD's supernodal Cholesky factor of an SPD matrix, through cvxopt.
+
+    ``system`` is the matrix's lower triangle from :func:`_cholmod_system`.
 
     With ``ordering`` (a fill-reducing permutation, such as landflow's nested dissection) CHOLMOD uses
     it as given; otherwise it orders the unknowns itself (AMD). Returns the factor and its size from the
@@ -359,12 +384,9 @@ def _cholmod_factor(matrix, ordering=None, *, memory_share=None):
     supernodal sparse Cholesky factorization and update/downdate", ACM TOMS 35:22,
     doi:10.1145/1391989.1391995.
     """
-    from cvxopt import cholmod, matrix as dense, spmatrix
+    from cvxopt import cholmod, matrix as dense
 
-    lower = _lower_csc(matrix)
-    columns = np.repeat(np.arange(lower.shape[1], dtype=np.int64), np.diff(lower.indptr))
-    system = spmatrix(dense(lower.data), dense(lower.indices.astype(np.int64)), dense(columns), lower.shape)
-    del lower, columns
+    n = system.size[0]
     saved = dict(cholmod.options)
     try:
         if ordering is not None:
@@ -375,11 +397,11 @@ def _cholmod_factor(matrix, ordering=None, *, memory_share=None):
     finally:
         cholmod.options.clear()
         cholmod.options.update(saved)
-    size = _cholmod_size(factor, matrix.shape[0])
+    size = _cholmod_size(factor, n)
     if memory_share is not None and "factor_bytes" in size:
         free = available_memory()
         if free is not None and size["factor_bytes"] > memory_share * free:
-            raise _FactorTooLarge(f"the CHOLMOD factor of {matrix.shape[0]} unknowns needs "
+            raise _FactorTooLarge(f"the CHOLMOD factor of {n} unknowns needs "
                                   f"{size['factor_bytes'] / 1e9:.1f} GB, more than {round(100 * memory_share)}% "
                                   f"of the {free / 1e9:.1f} GB available")
     try:
@@ -573,16 +595,29 @@ def factorize(matrix, *, method="auto", tolerance=1e-8, n_rhs=1, ordering=None, 
             package = {"cholmod": "cvxopt", "pardiso": "pypardiso (x86-64 only)"}[engine]
             raise SolverError(f"solver method '{engine}' needs the optional package {package} "
                               "(pip install 'landflow[fast]'); use 'direct' or 'superlu' instead.")
-    matrix = sp.csr_array(matrix)
+    if not isinstance(matrix, sp.csr_array):
+        matrix = sp.csr_array(matrix)
     _check_grounded(matrix, pieces=not pieces_grounded)
-    if engine == "cholmod" and fallback:
-        try:
-            return Solver(matrix, method, tolerance, engine=engine, ordering=ordering,
-                          memory_share=CHOLMOD_MEMORY_SHARE, product=product)
-        except _FactorTooLarge as exc:
-            log.info("solver: multigrid instead of a direct factorisation: %s", exc)
-            return Solver(matrix, "multigrid", tolerance)
-    return Solver(matrix, method, tolerance, engine=engine, ordering=ordering, product=product)
+    if engine != "cholmod":
+        return Solver(matrix, method, tolerance, engine=engine, ordering=ordering, product=product)
+    # CHOLMOD reads its own copy of the lower triangle. With ``product`` nothing else needs the matrix,
+    # so this function's reference goes before the numeric phase: when the caller passed the matrix as
+    # a temporary, its memory is then free for the factor (1.7 GB on 16 million cells).
+    system = _cholmod_system(matrix)
+    if product is not None:
+        del matrix
+        matrix = None
+    reason = None
+    try:
+        return Solver(matrix, method, tolerance, engine=engine, ordering=ordering, product=product,
+                      memory_share=CHOLMOD_MEMORY_SHARE if fallback else None, cholmod_system=system)
+    except _FactorTooLarge as exc:
+        reason = str(exc)
+    log.info("solver: multigrid instead of a direct factorisation: %s", reason)
+    if matrix is None:
+        matrix = _scipy_from_cholmod_system(system)
+    del system
+    return Solver(matrix, "multigrid", tolerance)
 
 
 def _check_grounded(matrix, pieces=True):

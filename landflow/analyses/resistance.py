@@ -93,7 +93,6 @@ def patch_voltages(graph, *, method="auto", tolerance=1e-8, progress=None):
     comp_of_patch = comp[:k]
     # np.zeros takes its pages from the system only as they are written: after the factorisation
     potential = np.zeros((graph.n_nodes, k))
-    laplacian = graph.laplacian()
     order = None
     solvers = []
     grounded = [c for c in np.unique(comp_of_patch) if np.count_nonzero(comp_of_patch == c) >= 2]
@@ -121,17 +120,15 @@ def patch_voltages(graph, *, method="auto", tolerance=1e-8, progress=None):
         # the whole graph grounded at node 0, in natural order: a slice, without index arrays
         sliced = keep.size == graph.n_nodes - 1 and ground == 0 and engine != "superlu"
         rows = slice(1, None) if sliced else keep
-        sub = laplacian[1:, 1:] if sliced else _symmetric_submatrix(laplacian, keep)
-        if c == grounded[-1]:
-            del laplacian               # the factorisation's peak comes without the whole Laplacian
         if progress:
             progress(f"solving component with {keep.size:,} unknowns and {members.size} patches")
         # Every piece of a connected component less one node touches that node, so the system is grounded
-        # by construction and factorize need not look for loose pieces.
-        solver = factorize(sub, method=wanted, tolerance=tolerance, n_rhs=members.size - 1, ordering=ordering,
-                           pieces_grounded=True, fallback=method == "auto",
-                           product=_grounded_product(graph, rows))
-        del sub
+        # by construction and factorize need not look for loose pieces. The grounded matrix is passed as a
+        # temporary and the residuals come from the graph (product), so that factorize can let the matrix
+        # go once the engine has its own copy: the factor's peak comes without it.
+        solver = factorize(_grounded_matrix(graph, keep, sliced), method=wanted, tolerance=tolerance,
+                           n_rhs=members.size - 1, ordering=ordering, pieces_grounded=True,
+                           fallback=method == "auto", product=_grounded_product(graph, rows))
         position = _positions(keep, members[1:])
         # Right-hand sides go in blocks of about RHS_BLOCK_VALUES numbers, so that the
         # solver's temporary copies stay small next to the factor whatever k is (one column at a time
@@ -208,6 +205,12 @@ def resistance_table(voltages, resistance=None):
             "commute_time": np.where(apart, np.inf, 2.0 * vol_ab * r),
         })
     return table
+
+
+def _grounded_matrix(graph, keep, sliced):
+    """L[keep][:, keep], the Laplacian grounded outside ``keep`` (``sliced``: keep is 1..n-1, a slice)."""
+    laplacian = graph.laplacian()
+    return laplacian[1:, 1:] if sliced else _symmetric_submatrix(laplacian, keep)
 
 
 def _grounded_product(graph, rows):
