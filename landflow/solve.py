@@ -75,10 +75,11 @@ DIRECT_MIN_RHS = 5
 DIRECT_RESIDUAL_LIMIT = 1e-6
 
 
-def _one_blas_thread():
+def one_blas_thread():
     """A context in which the BLAS libraries loaded (OpenBLAS, MKL) run on one thread (threadpoolctl).
 
-    SuperLU's solves with a block of right-hand sides call BLAS on one small supernode at a time. With the
+    SuperLU's solves with a block of right-hand sides call BLAS on one small supernode at a time, and the
+    current sum one small matrix-vector product per block of edges. With the
     default of one BLAS thread per core, those threads wait for each other on every call, and when the
     cores are busy with other work the block of 19 solves of the 1000 x 1000 benchmark took 2 to 12 s
     instead of 1.0 to 1.4 s on one thread (docs/performance.md). Without threadpoolctl this does nothing.
@@ -291,7 +292,7 @@ class Solver:
         b = np.asarray(b, dtype=np.float64)
         start = time.perf_counter()
         if self.engine == "superlu":
-            with _one_blas_thread():
+            with one_blas_thread():
                 if self.ordering is None:
                     x = self._lu.solve(b)
                 else:
@@ -688,6 +689,11 @@ def _symmetric_csc(matrix):
     return csc
 
 
+def _norm(v):
+    """Euclidean norm of a vector without BLAS (numpy's norm calls BLAS dot, whose threads stall on a busy machine)."""
+    return float(np.sqrt(np.einsum("i,i->", v, v)))
+
+
 def _relative_residual(matrix, x, b):
     """The worst relative residual ||b - A x|| / ||b|| over the columns of b (the absolute one where b = 0).
 
@@ -698,7 +704,7 @@ def _relative_residual(matrix, x, b):
     """
     product = matrix if callable(matrix) else matrix.__matmul__
     if x.ndim == 2 and x.flags.f_contiguous and b.flags.f_contiguous:    # contiguous columns: one product each
-        norm_r = np.array([np.linalg.norm(b[:, j] - product(x[:, j])) for j in range(x.shape[1])])
+        norm_r = np.array([_norm(b[:, j] - product(x[:, j])) for j in range(x.shape[1])])
     else:
         r = product(x)
         r -= b

@@ -5,6 +5,7 @@ from __future__ import annotations
 import numpy as np
 
 from ..errors import InputError
+from ..solve import one_blas_thread
 
 __all__ = ["edge_current", "pair_current", "current_density", "pair_weights"]
 
@@ -115,6 +116,15 @@ def current_density(voltages, weights=None, *, progress=None):
     groups = _product_groups(voltages.component_of_patch, w)
     pairs_of = [(a, np.flatnonzero(w[a, a + 1:]) + a + 1) for a in range(k - 1)]
     block = max(1024, (EDGE_BLOCK * 16) // max(k, 1))
+    with one_blas_thread():         # small products per block: BLAS threads would only wait for each other
+        _sum_blocks(u, i, j, c, edge_sum, block, groups, pairs_of, w, k, progress)
+    flow = _throughput(graph, edge_sum)
+    flow[:k] += 0.5 * w.sum(axis=1)
+    return flow
+
+
+def _sum_blocks(u, i, j, c, edge_sum, block, groups, pairs_of, w, k, progress):
+    """Fill edge_sum (the weighted sum over pairs of |voltage drop| times conductance) block by block."""
     for start in range(0, c.size, block):
         stop = min(start + block, c.size)
         drop = u[i[start:stop]] - u[j[start:stop]]          # (block, k)
@@ -129,9 +139,6 @@ def current_density(voltages, weights=None, *, progress=None):
         edge_sum[start:stop] = c[start:stop] * total
         if progress:
             progress(stop, c.size)
-    flow = _throughput(graph, edge_sum)
-    flow[:k] += 0.5 * w.sum(axis=1)
-    return flow
 
 
 def _product_groups(component_of_patch, w):
