@@ -363,24 +363,30 @@ def _pick(distance, both):
 
 def _edges_to_csr(values, mask, node_of_cell, n_nodes, grid, neighbours, edge_function, values_per):
     """Symmetric node-to-node conductance matrix from the grid's neighbour pairs (no self-loops)."""
+    index = np.int32 if n_nodes < 2**31 - 1 else np.int64
+    nodes = node_of_cell.astype(index)                  # node numbers in the matrix's index type: no later casts
     heads, tails, conductances = [], [], []
     for here, there, _, length in _neighbour_steps(grid, neighbours, values_per):
         both = mask[here] & mask[there]
-        a = node_of_cell[here][both]
-        b = node_of_cell[there][both]
+        a = nodes[here][both]
+        b = nodes[there][both]
         c = edge_function(values[here][both], values[there][both], _pick(length, both))
         apart = a != b                                  # edges inside a patch vanish when it is merged
-        heads.append(a[apart])
-        tails.append(b[apart])
-        conductances.append(c[apart])
-    i = np.concatenate(heads)
-    j = np.concatenate(tails)
-    c = np.concatenate(conductances)
-    del heads, tails, conductances
-    index = np.int32 if n_nodes < 2**31 - 1 else np.int64
-    matrix = sp.coo_array((np.concatenate([c, c]), (np.concatenate([i, j]).astype(index),
-                                                   np.concatenate([j, i]).astype(index))),
-                          shape=(n_nodes, n_nodes)).tocsr()   # sums parallel edges
+        if not apart.all():
+            a, b, c = a[apart], b[apart], c[apart]
+        heads.append(a)
+        tails.append(b)
+        conductances.append(c)
+        del both, apart, a, b, c
+    del nodes
+    # both directions of every edge, written once into the arrays the matrix is assembled from
+    rows = np.concatenate(heads + tails)
+    cols = np.concatenate(tails + heads)
+    del heads, tails
+    data = np.concatenate(conductances + conductances)
+    del conductances
+    matrix = sp.coo_array((data, (rows, cols)), shape=(n_nodes, n_nodes)).tocsr()   # sums parallel edges
+    del data, rows, cols
     matrix.eliminate_zeros()
     return matrix
 
