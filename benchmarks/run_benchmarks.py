@@ -368,7 +368,8 @@ def load_during(start_cpu, start_own, start_wall):
 def run_case(name, args):
     spec = CASES[name]
     folder = make_inputs(OUT / f"case_{name}", spec["n"], spec["k"])
-    result = {"case": name, **spec, "install": install(), "load_before": os.getloadavg(), "date": _now()}
+    result = {"case": name, **spec, "install": install(), "machine": machine(), "load_before": os.getloadavg(),
+              "date": _now()}
     cpu0, own0, wall0 = _cpu_jiffies(), _own_cpu(), time.monotonic()
     if not args.skip_bare or args.naive_pairs > 0:
         result["graph"] = run_worker("prepare", folder)
@@ -432,11 +433,12 @@ def machine():
         versions += f", pyamg {pyamg.__version__}"
     except ImportError:
         pass
-    try:
-        from importlib.metadata import version
-        versions += f", pypardiso {version('pypardiso')}, mkl {version('mkl')}"
-    except Exception:
-        pass
+    from importlib.metadata import PackageNotFoundError, version
+    for package in ("cvxopt", "pypardiso", "mkl", "threadpoolctl"):
+        try:
+            versions += f", {package} {version(package)}"
+        except PackageNotFoundError:
+            pass
     return f"{cpu}, {os.cpu_count()} cores, {mem:.0f} GB RAM, {platform.system()} {platform.release()}; {versions}"
 
 
@@ -457,7 +459,7 @@ def case_table(r):
              f"Load average before / after: {' '.join(f'{x:.1f}' for x in r['load_before'])} / "
              f"{' '.join(f'{x:.1f}' for x in r.get('load_after', ()))} (2 cores, shared)"
              + (f"; other processes used {others:.2f} cores on average while the case ran" if others is not None
-                else "") + ".", ""]
+                else "") + "." + (f" Run with: {r['machine']}." if r.get("machine") else ""), ""]
     if "error" in r.get("auto", {}):
         lines.append(f"landflow run failed: {r['auto']['error']}")
         return lines
@@ -467,6 +469,10 @@ def case_table(r):
     lines += ["| run | wall time | peak memory | landflow time / this | note |", "|---|---|---|---|---|"]
     base = lf["wall"]
     engine_note = f"auto chose {solver.get('method')} ({solver.get('engine')})"
+    if solver.get("factor_bytes"):
+        engine_note += f", factor {solver['factor_bytes'] / 1e9:.2f} GB"
+    elif solver.get("factor_nonzeros"):
+        engine_note += f", factor {solver['factor_nonzeros'] / 1e6:.0f} M nonzeros"
     runs = f" (fastest of {', '.join(f'{x:.1f}' for x in lf['runs'])} s)" if len(lf.get("runs", [])) > 1 else ""
     lines.append(f"| landflow end to end (GeoTIFF to GeoTIFF, `auto`) | {_fmt_s(base)}{runs} | {_fmt_mb(lf['peak_mb'])} | 1 "
                  f"| {engine_note}; graph {t.get('build graph', 0):.1f} s, solves {t.get('solve', 0):.1f} s "
@@ -545,17 +551,92 @@ def crossover_table(r):
     return lines
 
 
+def targets_table(results):
+    """The targets of the speed work, each met or missed, from the stored results."""
+    def get(case, *keys):
+        x = results.get(case)
+        for key in keys:
+            if not isinstance(x, dict) or key not in x or (isinstance(x[key], dict) and "error" in x[key]):
+                return None
+            x = x[key]
+        return x
+
+    rows = []
+    def add(target, value, met, note=""):
+        verdict = "-" if met is None else ("yes" if met else "**no**")
+        rows.append(f"| {target} | {value} | {verdict} | {note} |")
+
+    for case, label in (("1000-fast", "with the `fast` extra"), ("1000", "plain install (SuperLU)")):
+        wall, bare = get(case, "auto", "wall"), get(case, "bare_same", "wall")
+        engine = (get(case, "auto", "solvers") or [{}])[0].get("engine", "?")
+        if case == "1000-fast":
+            add("1000 x 1000, 20 patches, end to end <= 9 s, " + label,
+                "not measured" if wall is None else f"{wall:.1f} s ({engine})", None if wall is None else wall <= 9.0,
+                f"load {get(case, 'other_cores') or 0:.2f} cores of other work")
+        if wall is not None and bare is not None:
+            add(f"1000 x 1000: landflow <= 1.2x the bare engine, {label}", f"{wall / bare:.2f}x "
+                f"({wall:.1f} s against {bare:.1f} s, {engine})", wall / bare <= 1.2,
+                "bare: factorisation and solves only (see the table)")
+        naive = get(case, "naive", "wall")
+        if wall is not None and naive is not None:
+            add(f"1000 x 1000: >= 100x faster than one solve per pair, {label}", f"{naive / wall:.0f}x",
+                naive / wall >= 100, "naive extrapolated from the pairs timed")
+    wall, peak = get("4000-fast", "auto", "wall"), get("4000-fast", "auto", "peak_mb")
+    engine = (get("4000-fast", "auto", "solvers") or [{}])[0].get("engine", "?")
+    add("4000 x 4000, 10 patches: <= 5 minutes with the `fast` extra",
+        "not measured" if wall is None else f"{wall:.0f} s ({engine})", None if wall is None else wall <= 300)
+    add("4000 x 4000, 10 patches: <= 16 GB with the `fast` extra",
+        "not measured" if peak is None else f"{peak / 1024:.1f} GB", None if peak is None else peak / 1024 <= 16)
+    return ["### Targets", "", "From the tables above (each ratio within one run of the script).", "",
+            "| target | measured | met | note |", "|---|---|---|---|"] + rows + [""]
+
+
+def _kept_sections(old_block):
+    """The case tables of the doc's generated block, by case key, to keep those not measured again.
+
+    A table's key comes from its heading (``### 2000 x 2000 cells, 50 patches ..., with the `fast` extra``
+    is ``2000-fast``); the targets are always remade. Earlier tables carry their own date, machine line
+    excepted, so a kept table says when it was measured.
+    """
+    import re
+    sections, key, lines = {}, None, []
+    for line in old_block.splitlines() + ["### end"]:
+        if line.startswith("### "):
+            if key:
+                sections[key] = lines
+            match = re.match(r"### (\d+) x \1 cells, (\d+) patches", line)
+            key, lines = None, [line]
+            if line.startswith("### Direct against multigrid"):
+                key = "crossover"
+            elif match:
+                n, k = int(match.group(1)), int(match.group(2))
+                name = next((c for c, spec in CASES.items() if spec == dict(n=n, k=k)), None)
+                key = name and name + ("-fast" if "with the `fast` extra" in line else "")
+        elif key:
+            lines.append(line)
+    for lines in sections.values():
+        while lines and not lines[-1].strip():
+            lines.pop()
+        lines.append("")
+    return sections
+
+
 def write_doc(results):
     order = ["crossover"] + [f"{c}{v}" for c in ("1000", "1000k50", "2000", "4000") for v in ("", "-fast")]
+    DOC.parent.mkdir(exist_ok=True)
+    old = DOC.read_text() if DOC.exists() else "# Performance\n\n" + START + "\n" + END + "\n"
+    kept = _kept_sections(old[old.index(START):old.index(END)]) if START in old and END in old else {}
     body = [START, "", f"Machine: {machine()}.", ""]
     for name in order:
         if name in results:
             r = results[name]
             body += crossover_table(r) if name == "crossover" else case_table(r)
+        elif name in kept:
+            body += kept[name][:1] + ["", "(An earlier run, kept as it was: this invocation did not measure it "
+                                      "again. The packages installed then may differ from the machine line above.)"] + kept[name][1:]
+    body += targets_table(results)
     body.append(END)
     text = "\n".join(body)
-    DOC.parent.mkdir(exist_ok=True)
-    old = DOC.read_text() if DOC.exists() else "# Performance\n\n" + START + "\n" + END + "\n"
     if START in old and END in old:
         new = old[:old.index(START)] + text + old[old.index(END) + len(END):]
     else:
