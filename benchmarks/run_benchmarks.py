@@ -293,9 +293,13 @@ WORKERS = {"landflow": worker_landflow, "prepare": worker_prepare, "bare": worke
            "naive": worker_naive, "crossover": worker_crossover}
 
 
-def run_worker(*args, timeout=3600):
-    """Run one worker in a fresh interpreter; returns its JSON result or an error dict."""
-    env = {**os.environ, "PYTHONPATH": str(ROOT) + os.pathsep + os.environ.get("PYTHONPATH", "")}
+def run_worker(*args, timeout=3600, code=None):
+    """Run one worker in a fresh interpreter; returns its JSON result or an error dict.
+
+    ``code``: another checkout of landflow whose package the worker imports instead of this one's
+    (for a before-and-after comparison in one run).
+    """
+    env = {**os.environ, "PYTHONPATH": str(code or ROOT) + os.pathsep + os.environ.get("PYTHONPATH", "")}
     cmd = [sys.executable, str(Path(__file__).resolve()), "_worker", *map(str, args)]
     print("  ...", " ".join(map(str, args)), flush=True)
     try:
@@ -321,9 +325,9 @@ def have_pardiso():
     return True
 
 
-def run_best(args_, repeat):
+def run_best(args_, repeat, code=None):
     """Run a worker ``repeat`` times and keep the fastest run (the least disturbed by other load)."""
-    runs = [run_worker(*args_) for _ in range(max(1, repeat))]
+    runs = [run_worker(*args_, code=code) for _ in range(max(1, repeat))]
     good = [r for r in runs if "error" not in r]
     if not good:
         return runs[-1]
@@ -373,6 +377,9 @@ def run_case(name, args):
     cpu0, own0, wall0 = _cpu_jiffies(), _own_cpu(), time.monotonic()
     if not args.skip_bare or args.naive_pairs > 0:
         result["graph"] = run_worker("prepare", folder)
+    if args.compare_with:                           # the same study with another checkout's code, first
+        result["before"] = run_best(("landflow", folder, "auto"), args.repeat, code=Path(args.compare_with).resolve())
+        result["before_code"] = args.compare_label or str(args.compare_with)
     result["auto"] = run_best(("landflow", folder, "auto"), args.repeat)
     chosen = (result["auto"].get("solvers") or [{}])[0]
     if chosen.get("method") == "multigrid":
@@ -495,6 +502,13 @@ def case_table(r):
             extra = (f"{x['pairs_timed']} of {x['pairs_total']} pairs timed ({x['wall_timed']:.1f} s), "
                      f"extrapolated linearly" + (f"; {note}" if note else ""))
         lines.append(f"| {label} | {_fmt_s(x['wall'])} | {_fmt_mb(x['peak_mb'])} | {ratio:.2f} | {extra} |")
+    before = r.get("before")
+    if before and "error" not in before:
+        bt = before["timings"]
+        runs_b = f" (fastest of {', '.join(f'{x:.1f}' for x in before['runs'])} s)" if len(before.get("runs", [])) > 1 else ""
+        lines.append(f"| landflow before this work ({r.get('before_code')}), same study | {_fmt_s(before['wall'])}{runs_b} "
+                     f"| {_fmt_mb(before['peak_mb'])} | {base / before['wall']:.2f} | graph {bt.get('build graph', 0):.1f} s, "
+                     f"solves {bt.get('solve', 0):.1f} s, current sum {bt.get('current_density', 0):.1f} s |")
     ls = r.get("landflow_superlu")
     if ls and "error" not in ls:
         lines.append(f"| landflow end to end, `method = \"superlu\"` | {_fmt_s(ls['wall'])} | {_fmt_mb(ls['peak_mb'])} "
@@ -511,6 +525,8 @@ def case_table(r):
     for key, label in (("bare_same", "same engine"), ("bare_scipy", "scipy alone")):
         if r.get(key) and "wall" in r[key]:
             verdict.append(f"landflow / bare ({label}): **{base / r[key]['wall']:.2f}x**")
+            if key == "bare_same" and before and "wall" in before:
+                verdict.append(f"before this work: {before['wall'] / r[key]['wall']:.2f}x")
     if verdict:
         lines += ["; ".join(verdict) + ".", ""]
     return lines
@@ -664,6 +680,9 @@ def main(argv=None):
                         help="grid sides for the crossover case")
     parser.add_argument("--rhs", type=int, default=4, help="right-hand sides per crossover measurement")
     parser.add_argument("--report-only", action="store_true", help="rewrite docs/performance.md from stored results")
+    parser.add_argument("--compare-with", metavar="DIR",
+                        help="also run landflow from another checkout (e.g. an export of the main branch): before/after")
+    parser.add_argument("--compare-label", help="how the tables name that checkout (default: its path)")
     args = parser.parse_args(argv)
     OUT.mkdir(parents=True, exist_ok=True)
     results = json.loads(RESULTS.read_text()) if RESULTS.exists() else {}
