@@ -157,6 +157,36 @@ class TestOrdering:
         ordered = solve.factorize(sub, method="superlu", ordering=order[order != 0] - 1).solve(rhs)
         np.testing.assert_allclose(ordered, plain, rtol=1e-10, atol=1e-12)
 
+    @pytest.mark.parametrize("shape", [(1, 5), (3, 7), (17, 5), (100, 1), (0, 3), (257, 300), (513, 129), (999, 2)])
+    @pytest.mark.parametrize("leaf", [1, 4, 16])
+    def test_nested_dissection_ranks_follow_the_recursive_definition(self, shape, leaf):
+        # George 1973's dissection written out plainly: both halves of the longer side, then the cutting line;
+        # landflow computes each box shape's ranks once and copies them, which must give the same order.
+        from landflow.graph import _dissection_rank
+        expected = np.empty(shape, dtype=np.int64)
+        counter = [0]
+
+        def put(r0, r1, c0, c1):
+            n = (r1 - r0) * (c1 - c0)
+            expected[r0:r1, c0:c1] = (counter[0] + np.arange(n)).reshape(r1 - r0, c1 - c0)
+            counter[0] += n
+
+        def cut(r0, r1, c0, c1):
+            h, w = r1 - r0, c1 - c0
+            if h <= 0 or w <= 0:
+                return
+            if h * w <= leaf or min(h, w) <= 2 and max(h, w) <= leaf:
+                put(r0, r1, c0, c1)
+            elif h >= w:
+                m = r0 + h // 2
+                cut(r0, m, c0, c1), cut(m + 1, r1, c0, c1), put(m, m + 1, c0, c1)
+            else:
+                m = c0 + w // 2
+                cut(r0, r1, c0, m), cut(r0, r1, m + 1, c1), put(r0, r1, m, m + 1)
+
+        cut(0, shape[0], 0, shape[1])
+        np.testing.assert_array_equal(_dissection_rank(shape, leaf), expected)
+
     def test_nested_dissection_fills_less_than_minimum_degree(self):
         graph = lognormal_graph(80, 80, [(2, 2), (70, 70)])
         sub = graph.laplacian()[1:, 1:]
