@@ -710,6 +710,6 @@ def _relative_residual(matrix, x, b):
         r -= b
         norm_r = np.atleast_1d(np.sqrt(np.einsum("i...,i...->...", r, r)))
         del r
-    norm_b = np.atleast_1d(np.linalg.norm(b, axis=0))
+    norm_b = np.atleast_1d(np.sqrt(np.einsum("i...,i...->...", b, b)))
     relative = np.divide(norm_r, norm_b, out=norm_r.copy(), where=norm_b > 0)
     return float(relative.max()) if relative.size else 0.0
