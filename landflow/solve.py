@@ -452,16 +452,8 @@ def _cholmod_solve(factor, b):
     block = spmatrix(dense(b2[rows, cols]), dense(rows.astype(np.int64)), dense(cols.astype(np.int64)), (n, m))
     solution = cholmod.spsolve(factor, block)
     del block
-    colptr, rowind, values = (np.asarray(a).ravel() for a in solution.CCS)
+    x = np.asarray(dense(solution))     # cvxopt's own sparse-to-dense, column-major; numpy reads it in place
     del solution
-    x = np.zeros((n, m), order="F")
-    if values.size == n * m:                    # every entry stored, in column order: the dense block itself
-        x.reshape(-1, order="F")[:] = values
-        if not np.array_equal(rowind[:n], np.arange(n)):     # not sorted within the column after all
-            x.fill(0.0)
-            x[rowind, np.repeat(np.arange(m), np.diff(colptr))] = values
-    else:
-        x[rowind, np.repeat(np.arange(m), np.diff(colptr))] = values
     return x.reshape(b.shape)
 
 
