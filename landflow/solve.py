@@ -102,9 +102,14 @@ _SINGULAR = ("The system is singular: some part of the graph is not tied to a gr
 #: 31.6 bytes at 1 million unknowns); rounded up so that the estimate errs on the safe side.
 FACTOR_BYTES_PER_UNKNOWN_LOG2 = {"superlu": 100.0, "pardiso": 80.0, "cholmod": 36.0}
 
-#: Share of the memory available after CHOLMOD's symbolic analysis that its numeric factor may take
-#: (the rest is for the solves' blocks and the outputs); above it, ``auto`` falls back to multigrid.
-CHOLMOD_MEMORY_SHARE = 0.85
+#: Share of the memory available after CHOLMOD's symbolic analysis that its numeric phase may take: the
+#: factor plus the two copies of the matrix's triangle made during it (cvxopt packs one, CHOLMOD permutes
+#: and transposes it into another; 2.6 GB next to a 12.2 GB factor at 16 million unknowns, measured).
+#: Above it, ``auto`` falls back to multigrid.
+CHOLMOD_MEMORY_SHARE = 0.95
+
+#: Bytes per stored entry of the triangle (a double and a 64-bit row index) in each of those copies.
+_CHOLMOD_COPY_BYTES = 2 * 16
 
 
 def factor_bytes(n_unknowns, engine):
@@ -151,8 +156,9 @@ def choose_method(n_unknowns, n_rhs=1, *, memory=None, engine=None):
     graph, the potentials and the outputs; otherwise multigrid, whose memory
     grows linearly, and the reason is logged. For CHOLMOD this is only a first
     screen against all of the memory: its symbolic analysis gives the factor's
-    exact size before the numeric phase, which :func:`factorize` checks against
-    :data:`CHOLMOD_MEMORY_SHARE` of what is then available.
+    exact size before the numeric phase, which :func:`factorize` checks, with the
+    matrix copies of that phase, against :data:`CHOLMOD_MEMORY_SHARE` of what is
+    then available.
 
     Examples
     --------
@@ -401,9 +407,10 @@ def _cholmod_factor(system, ordering=None, *, memory_share=None):
     size = _cholmod_size(factor, n)
     if memory_share is not None and "factor_bytes" in size:
         free = available_memory()
-        if free is not None and size["factor_bytes"] > memory_share * free:
-            raise _FactorTooLarge(f"the CHOLMOD factor of {n} unknowns needs "
-                                  f"{size['factor_bytes'] / 1e9:.1f} GB, more than {round(100 * memory_share)}% "
+        need = size["factor_bytes"] + _CHOLMOD_COPY_BYTES * len(system)
+        if free is not None and need > memory_share * free:
+            raise _FactorTooLarge(f"the CHOLMOD factor of {n} unknowns needs {size['factor_bytes'] / 1e9:.1f} GB "
+                                  f"and its numeric phase {need / 1e9:.1f} GB, more than {round(100 * memory_share)}% "
                                   f"of the {free / 1e9:.1f} GB available")
     try:
         cholmod.numeric(system, factor)
