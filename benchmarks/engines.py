@@ -47,6 +47,9 @@ def bare(graph, engine):
         rows = position[np.arange(1, k)]
     else:
         matrix, ordering, rows = laplacian[1:, 1:], None, np.arange(k - 1)
+        if engine == "cholmod":         # landflow gives CHOLMOD its nested-dissection order
+            order = nested_dissection_order(graph)
+            ordering = order[order != 0] - 1
     rhs = np.zeros((matrix.shape[0], k - 1))
     rhs[rows, np.arange(k - 1)] = 1.0
     start = time.perf_counter()

@@ -148,8 +148,8 @@ def _load_system(folder):
     return lap, n, k
 
 
-def _factor(matrix, engine):
-    """(solve function, seconds) for a grounded SPD matrix, with scipy or pypardiso only."""
+def _factor(matrix, engine, ordering=None):
+    """(solve function, seconds) for a grounded SPD matrix, with scipy, cvxopt or pypardiso only."""
     import scipy.sparse as sp
     import scipy.sparse.linalg as sla
     start = time.perf_counter()
@@ -170,27 +170,55 @@ def _factor(matrix, engine):
             b2 = b.reshape(b.shape[0], -1)
             return np.column_stack([ml.solve(col, tol=1e-8, accel="cg", maxiter=500) for col in b2.T]).reshape(b.shape)
         return solve, time.perf_counter() - start
+    if engine == "cholmod":                     # in the given order, sparse right-hand sides: as landflow
+        from cvxopt import cholmod, matrix as dense, spmatrix
+        lower = sp.tril(matrix, format="csc")
+        columns = np.repeat(np.arange(lower.shape[1]), np.diff(lower.indptr))
+        system = spmatrix(dense(lower.data), dense(lower.indices.astype(np.int64)), dense(columns), lower.shape)
+        del lower, columns
+        if ordering is not None:
+            cholmod.options["nmethods"] = 1
+            factor = cholmod.symbolic(system, p=dense(ordering.astype(np.int64), tc="i"))
+        else:
+            factor = cholmod.symbolic(system)
+        cholmod.numeric(system, factor)
+        del system
+        def solve(b):
+            b2 = b.reshape(b.shape[0], -1)
+            rows, cols = np.nonzero(b2)
+            x = cholmod.spsolve(factor, spmatrix(dense(b2[rows, cols]), dense(rows.astype(np.int64)),
+                                                 dense(cols.astype(np.int64)), b2.shape))
+            return np.asarray(dense(x)).reshape(b.shape)
+        return solve, time.perf_counter() - start
+    from threadpoolctl import threadpool_limits
     spec = "NATURAL" if engine == "superlu-nd" else "MMD_AT_PLUS_A"
     lu = sla.splu(matrix.tocsc(), permc_spec=spec, diag_pivot_thresh=0.0, options={"SymmetricMode": True})
-    return lu.solve, time.perf_counter() - start
+    def solve(b):               # one BLAS thread, as landflow's SuperLU solves (landflow.solve._one_blas_thread)
+        with threadpool_limits(limits=1, user_api="blas"):
+            return lu.solve(b)
+    return solve, time.perf_counter() - start
 
 
 def worker_bare(folder, engine):
     """One factorisation plus k - 1 solves of the grounded system; scipy (or pypardiso) only."""
     lap, n, k = _load_system(folder)
+    ordering = None
     if engine == "superlu-nd":                     # same ordering as landflow, applied untimed
         order = np.load(Path(folder) / "order.npy")
         keep = order[order != 0]
     else:
         keep = np.arange(1, n)
+        if engine == "cholmod":                    # landflow's order, given to CHOLMOD
+            order = np.load(Path(folder) / "order.npy")
+            ordering = order[order != 0] - 1
     sub = lap[keep][:, keep]
     where = np.empty(n, np.int64)
     where[keep] = np.arange(keep.size)
-    rhs = np.zeros((keep.size, k - 1))
+    rhs = np.zeros((keep.size, k - 1), order="F")
     rhs[where[np.arange(1, k)], np.arange(k - 1)] = 1.0
     del lap
     start = time.perf_counter()
-    solve, factor_seconds = _factor(sub, engine)
+    solve, factor_seconds = _factor(sub, engine, ordering)
     t = time.perf_counter()
     x = solve(rhs)
     solve_seconds = time.perf_counter() - t
@@ -265,9 +293,13 @@ WORKERS = {"landflow": worker_landflow, "prepare": worker_prepare, "bare": worke
            "naive": worker_naive, "crossover": worker_crossover}
 
 
-def run_worker(*args, timeout=3600):
-    """Run one worker in a fresh interpreter; returns its JSON result or an error dict."""
-    env = {**os.environ, "PYTHONPATH": str(ROOT) + os.pathsep + os.environ.get("PYTHONPATH", "")}
+def run_worker(*args, timeout=3600, code=None):
+    """Run one worker in a fresh interpreter; returns its JSON result or an error dict.
+
+    ``code``: another checkout of landflow whose package the worker imports instead of this one's
+    (for a before-and-after comparison in one run).
+    """
+    env = {**os.environ, "PYTHONPATH": str(code or ROOT) + os.pathsep + os.environ.get("PYTHONPATH", "")}
     cmd = [sys.executable, str(Path(__file__).resolve()), "_worker", *map(str, args)]
     print("  ...", " ".join(map(str, args)), flush=True)
     try:
@@ -293,9 +325,9 @@ def have_pardiso():
     return True
 
 
-def run_best(args_, repeat):
+def run_best(args_, repeat, code=None):
     """Run a worker ``repeat`` times and keep the fastest run (the least disturbed by other load)."""
-    runs = [run_worker(*args_) for _ in range(max(1, repeat))]
+    runs = [run_worker(*args_, code=code) for _ in range(max(1, repeat))]
     good = [r for r in runs if "error" not in r]
     if not good:
         return runs[-1]
@@ -304,32 +336,71 @@ def run_best(args_, repeat):
     return best
 
 
+def install():
+    """Which direct engines this interpreter has: ``fast`` with cvxopt (CHOLMOD) or pypardiso, else ``plain``."""
+    from landflow.solve import direct_engine
+    return "plain" if direct_engine() == "superlu" else "fast"
+
+
+def _cpu_jiffies():
+    """(busy, total) CPU time of the whole machine so far, from /proc/stat, in seconds."""
+    try:
+        with open("/proc/stat") as fh:
+            fields = [int(x) for x in fh.readline().split()[1:]]
+    except (OSError, ValueError):
+        return None
+    tick = os.sysconf("SC_CLK_TCK")
+    idle = fields[3] + (fields[4] if len(fields) > 4 else 0)
+    return (sum(fields) - idle) / tick, sum(fields) / tick
+
+
+def _own_cpu():
+    own, kids = resource.getrusage(resource.RUSAGE_SELF), resource.getrusage(resource.RUSAGE_CHILDREN)
+    return own.ru_utime + own.ru_stime + kids.ru_utime + kids.ru_stime
+
+
+def load_during(start_cpu, start_own, start_wall):
+    """How busy the machine was with other work while a case ran: cores used by other processes on average."""
+    end = _cpu_jiffies()
+    if start_cpu is None or end is None:
+        return None
+    wall = time.monotonic() - start_wall
+    others = (end[0] - start_cpu[0]) - (_own_cpu() - start_own)
+    return max(0.0, others / wall) if wall > 0 else None
+
+
 def run_case(name, args):
     spec = CASES[name]
     folder = make_inputs(OUT / f"case_{name}", spec["n"], spec["k"])
-    result = {"case": name, **spec, "load_before": os.getloadavg(), "date": _now()}
+    result = {"case": name, **spec, "install": install(), "machine": machine(), "load_before": os.getloadavg(),
+              "date": _now()}
+    cpu0, own0, wall0 = _cpu_jiffies(), _own_cpu(), time.monotonic()
     if not args.skip_bare or args.naive_pairs > 0:
         result["graph"] = run_worker("prepare", folder)
+    if args.compare_with:                           # the same study with another checkout's code, first
+        result["before"] = run_best(("landflow", folder, "auto"), args.repeat, code=Path(args.compare_with).resolve())
+        result["before_code"] = args.compare_label or str(args.compare_with)
     result["auto"] = run_best(("landflow", folder, "auto"), args.repeat)
     chosen = (result["auto"].get("solvers") or [{}])[0]
     if chosen.get("method") == "multigrid":
         engine = "multigrid"
     else:
-        engine = "pardiso" if chosen.get("engine", "pardiso" if have_pardiso() else "superlu") == "pardiso" else "superlu-nd"
+        engine = {"pardiso": "pardiso", "cholmod": "cholmod"}.get(chosen.get("engine"), "superlu-nd")
     result["engine"] = engine                       # the baselines use the engine landflow chose
     if name in ("1000", "1000k50") or args.all_engines:
-        other = "superlu" if engine == "pardiso" else None
+        other = "superlu" if engine in ("pardiso", "cholmod") else None
         if other:
             result["landflow_superlu"] = run_worker("landflow", folder, "superlu")
     if not args.skip_bare:
         result["bare_same"] = run_best(("bare", folder, engine), args.repeat)
-        if engine == "pardiso":
-            result["bare_superlu_nd"] = run_worker("bare", folder, "superlu-nd")
+        if engine in ("pardiso", "cholmod"):
+            result["bare_superlu_nd"] = run_best(("bare", folder, "superlu-nd"), args.repeat)
         if spec["n"] <= 1000:
             result["bare_scipy"] = run_worker("bare", folder, "superlu-mmd")
     if args.naive_pairs > 0:
         result["naive"] = run_worker("naive", folder, engine, args.naive_pairs)
     result["load_after"] = os.getloadavg()
+    result["other_cores"] = load_during(cpu0, own0, wall0)
     for f in ("laplacian.npz", "order.npy"):
         (folder / f).unlink(missing_ok=True)
     return result
@@ -369,11 +440,12 @@ def machine():
         versions += f", pyamg {pyamg.__version__}"
     except ImportError:
         pass
-    try:
-        from importlib.metadata import version
-        versions += f", pypardiso {version('pypardiso')}, mkl {version('mkl')}"
-    except Exception:
-        pass
+    from importlib.metadata import PackageNotFoundError, version
+    for package in ("cvxopt", "pypardiso", "mkl", "threadpoolctl"):
+        try:
+            versions += f", {package} {version(package)}"
+        except PackageNotFoundError:
+            pass
     return f"{cpu}, {os.cpu_count()} cores, {mem:.0f} GB RAM, {platform.system()} {platform.release()}; {versions}"
 
 
@@ -387,9 +459,14 @@ def _fmt_mb(x):
 
 def case_table(r):
     k, n = r["k"], r["n"]
-    lines = [f"### {n} x {n} cells, {k} patches ({k * (k - 1) // 2} pairs), measured {r['date']}", "",
+    variant = {"plain": "plain install (SuperLU)", "fast": "with the `fast` extra"}.get(r.get("install"), "")
+    others = r.get("other_cores")
+    lines = [f"### {n} x {n} cells, {k} patches ({k * (k - 1) // 2} pairs){', ' + variant if variant else ''}, "
+             f"measured {r['date']}", "",
              f"Load average before / after: {' '.join(f'{x:.1f}' for x in r['load_before'])} / "
-             f"{' '.join(f'{x:.1f}' for x in r.get('load_after', ()))} (2 cores, shared).", ""]
+             f"{' '.join(f'{x:.1f}' for x in r.get('load_after', ()))} (2 cores, shared)"
+             + (f"; other processes used {others:.2f} cores on average while the case ran" if others is not None
+                else "") + "." + (f" Run with: {r['machine']}." if r.get("machine") else ""), ""]
     if "error" in r.get("auto", {}):
         lines.append(f"landflow run failed: {r['auto']['error']}")
         return lines
@@ -399,6 +476,10 @@ def case_table(r):
     lines += ["| run | wall time | peak memory | landflow time / this | note |", "|---|---|---|---|---|"]
     base = lf["wall"]
     engine_note = f"auto chose {solver.get('method')} ({solver.get('engine')})"
+    if solver.get("factor_bytes"):
+        engine_note += f", factor {solver['factor_bytes'] / 1e9:.2f} GB"
+    elif solver.get("factor_nonzeros"):
+        engine_note += f", factor {solver['factor_nonzeros'] / 1e6:.0f} M nonzeros"
     runs = f" (fastest of {', '.join(f'{x:.1f}' for x in lf['runs'])} s)" if len(lf.get("runs", [])) > 1 else ""
     lines.append(f"| landflow end to end (GeoTIFF to GeoTIFF, `auto`) | {_fmt_s(base)}{runs} | {_fmt_mb(lf['peak_mb'])} | 1 "
                  f"| {engine_note}; graph {t.get('build graph', 0):.1f} s, solves {t.get('solve', 0):.1f} s "
@@ -421,12 +502,20 @@ def case_table(r):
             extra = (f"{x['pairs_timed']} of {x['pairs_total']} pairs timed ({x['wall_timed']:.1f} s), "
                      f"extrapolated linearly" + (f"; {note}" if note else ""))
         lines.append(f"| {label} | {_fmt_s(x['wall'])} | {_fmt_mb(x['peak_mb'])} | {ratio:.2f} | {extra} |")
+    before = r.get("before")
+    if before and "error" not in before:
+        bt = before["timings"]
+        runs_b = f" (fastest of {', '.join(f'{x:.1f}' for x in before['runs'])} s)" if len(before.get("runs", [])) > 1 else ""
+        lines.append(f"| landflow before this work ({r.get('before_code')}), same study | {_fmt_s(before['wall'])}{runs_b} "
+                     f"| {_fmt_mb(before['peak_mb'])} | {base / before['wall']:.2f} | graph {bt.get('build graph', 0):.1f} s, "
+                     f"solves {bt.get('solve', 0):.1f} s, current sum {bt.get('current_density', 0):.1f} s |")
     ls = r.get("landflow_superlu")
     if ls and "error" not in ls:
         lines.append(f"| landflow end to end, `method = \"superlu\"` | {_fmt_s(ls['wall'])} | {_fmt_mb(ls['peak_mb'])} "
                      f"| {base / ls['wall']:.2f} | solves {ls['timings'].get('solve', 0):.1f} s |")
     row("naive", f"naive: one grounded solve per pair ({r['engine']})")
-    row("bare_same", f"bare lower bound, same engine ({r['engine']}, no landflow)")
+    row("bare_same", f"bare lower bound, same engine ({r['engine']}, no landflow)",
+        "same order and solve calls as landflow; excludes reading, graph, order, extraction, current, writing")
     row("bare_superlu_nd", "bare: scipy SuperLU in landflow's nested-dissection order")
     row("bare_scipy", "bare lower bound, scipy alone (SuperLU, its MMD ordering)")
     lines.append("")
@@ -436,6 +525,8 @@ def case_table(r):
     for key, label in (("bare_same", "same engine"), ("bare_scipy", "scipy alone")):
         if r.get(key) and "wall" in r[key]:
             verdict.append(f"landflow / bare ({label}): **{base / r[key]['wall']:.2f}x**")
+            if key == "bare_same" and before and "wall" in before:
+                verdict.append(f"before this work: {before['wall'] / r[key]['wall']:.2f}x")
     if verdict:
         lines += ["; ".join(verdict) + ".", ""]
     return lines
@@ -476,17 +567,92 @@ def crossover_table(r):
     return lines
 
 
+def targets_table(results):
+    """The targets of the speed work, each met or missed, from the stored results."""
+    def get(case, *keys):
+        x = results.get(case)
+        for key in keys:
+            if not isinstance(x, dict) or key not in x or (isinstance(x[key], dict) and "error" in x[key]):
+                return None
+            x = x[key]
+        return x
+
+    rows = []
+    def add(target, value, met, note=""):
+        verdict = "-" if met is None else ("yes" if met else "**no**")
+        rows.append(f"| {target} | {value} | {verdict} | {note} |")
+
+    for case, label in (("1000-fast", "with the `fast` extra"), ("1000", "plain install (SuperLU)")):
+        wall, bare = get(case, "auto", "wall"), get(case, "bare_same", "wall")
+        engine = (get(case, "auto", "solvers") or [{}])[0].get("engine", "?")
+        if case == "1000-fast":
+            add("1000 x 1000, 20 patches, end to end <= 9 s, " + label,
+                "not measured" if wall is None else f"{wall:.1f} s ({engine})", None if wall is None else wall <= 9.0,
+                f"load {get(case, 'other_cores') or 0:.2f} cores of other work")
+        if wall is not None and bare is not None:
+            add(f"1000 x 1000: landflow <= 1.2x the bare engine, {label}", f"{wall / bare:.2f}x "
+                f"({wall:.1f} s against {bare:.1f} s, {engine})", wall / bare <= 1.2,
+                "bare: factorisation and solves only (see the table)")
+        naive = get(case, "naive", "wall")
+        if wall is not None and naive is not None:
+            add(f"1000 x 1000: >= 100x faster than one solve per pair, {label}", f"{naive / wall:.0f}x",
+                naive / wall >= 100, "naive extrapolated from the pairs timed")
+    wall, peak = get("4000-fast", "auto", "wall"), get("4000-fast", "auto", "peak_mb")
+    engine = (get("4000-fast", "auto", "solvers") or [{}])[0].get("engine", "?")
+    add("4000 x 4000, 10 patches: <= 5 minutes with the `fast` extra",
+        "not measured" if wall is None else f"{wall:.0f} s ({engine})", None if wall is None else wall <= 300)
+    add("4000 x 4000, 10 patches: <= 16 GB with the `fast` extra",
+        "not measured" if peak is None else f"{peak / 1024:.1f} GB", None if peak is None else peak / 1024 <= 16)
+    return ["### Targets", "", "From the tables above (each ratio within one run of the script).", "",
+            "| target | measured | met | note |", "|---|---|---|---|"] + rows + [""]
+
+
+def _kept_sections(old_block):
+    """The case tables of the doc's generated block, by case key, to keep those not measured again.
+
+    A table's key comes from its heading (``### 2000 x 2000 cells, 50 patches ..., with the `fast` extra``
+    is ``2000-fast``); the targets are always remade. Earlier tables carry their own date, machine line
+    excepted, so a kept table says when it was measured.
+    """
+    import re
+    sections, key, lines = {}, None, []
+    for line in old_block.splitlines() + ["### end"]:
+        if line.startswith("### "):
+            if key:
+                sections[key] = lines
+            match = re.match(r"### (\d+) x \1 cells, (\d+) patches", line)
+            key, lines = None, [line]
+            if line.startswith("### Direct against multigrid"):
+                key = "crossover"
+            elif match:
+                n, k = int(match.group(1)), int(match.group(2))
+                name = next((c for c, spec in CASES.items() if spec == dict(n=n, k=k)), None)
+                key = name and name + ("-fast" if "with the `fast` extra" in line else "")
+        elif key:
+            lines.append(line)
+    for lines in sections.values():
+        while lines and not lines[-1].strip():
+            lines.pop()
+        lines.append("")
+    return sections
+
+
 def write_doc(results):
-    order = ["crossover", "1000", "1000k50", "2000", "4000"]
+    order = ["crossover"] + [f"{c}{v}" for c in ("1000", "1000k50", "2000", "4000") for v in ("", "-fast")]
+    DOC.parent.mkdir(exist_ok=True)
+    old = DOC.read_text() if DOC.exists() else "# Performance\n\n" + START + "\n" + END + "\n"
+    kept = _kept_sections(old[old.index(START):old.index(END)]) if START in old and END in old else {}
     body = [START, "", f"Machine: {machine()}.", ""]
     for name in order:
         if name in results:
             r = results[name]
             body += crossover_table(r) if name == "crossover" else case_table(r)
+        elif name in kept:
+            body += kept[name][:1] + ["", "(An earlier run, kept as it was: this invocation did not measure it "
+                                      "again. The packages installed then may differ from the machine line above.)"] + kept[name][1:]
+    body += targets_table(results)
     body.append(END)
     text = "\n".join(body)
-    DOC.parent.mkdir(exist_ok=True)
-    old = DOC.read_text() if DOC.exists() else "# Performance\n\n" + START + "\n" + END + "\n"
     if START in old and END in old:
         new = old[:old.index(START)] + text + old[old.index(END) + len(END):]
     else:
@@ -514,13 +680,17 @@ def main(argv=None):
                         help="grid sides for the crossover case")
     parser.add_argument("--rhs", type=int, default=4, help="right-hand sides per crossover measurement")
     parser.add_argument("--report-only", action="store_true", help="rewrite docs/performance.md from stored results")
+    parser.add_argument("--compare-with", metavar="DIR",
+                        help="also run landflow from another checkout (e.g. an export of the main branch): before/after")
+    parser.add_argument("--compare-label", help="how the tables name that checkout (default: its path)")
     args = parser.parse_args(argv)
     OUT.mkdir(parents=True, exist_ok=True)
     results = json.loads(RESULTS.read_text()) if RESULTS.exists() else {}
     if not args.report_only:
         for name in args.case or ["1000"]:
             print(f"case {name}", flush=True)
-            results[name] = run_crossover(args) if name == "crossover" else run_case(name, args)
+            key = name if name == "crossover" or install() == "plain" else f"{name}-fast"
+            results[key] = run_crossover(args) if name == "crossover" else run_case(name, args)
             RESULTS.write_text(json.dumps(results, indent=1))
     write_doc(results)
 

@@ -26,22 +26,34 @@ def lognormal_graph(rows, cols, patches, seed=0):
 
 
 class TestChooseMethod:
-    def test_direct_up_to_the_documented_size(self):
+    # SuperLU and Pardiso: bounded by size (their factors outgrow the machine); CHOLMOD by memory alone
+    @pytest.mark.parametrize("engine", ["superlu", "pardiso"])
+    def test_direct_up_to_the_documented_size(self, engine):
         for n_rhs in (1, 9, 49, 1000):
-            assert solve.choose_method(1_000, n_rhs) == "direct"
-            assert solve.choose_method(solve.DIRECT_ALWAYS_UNKNOWNS, n_rhs) == "direct"
+            assert solve.choose_method(1_000, n_rhs, engine=engine) == "direct"
+            assert solve.choose_method(solve.DIRECT_ALWAYS_UNKNOWNS, n_rhs, engine=engine) == "direct"
         for n_rhs in (solve.DIRECT_MIN_RHS, 49):
-            assert solve.choose_method(solve.DIRECT_MAX_UNKNOWNS, n_rhs) == "direct"
+            assert solve.choose_method(solve.DIRECT_MAX_UNKNOWNS, n_rhs, engine=engine) == "direct"
 
-    def test_multigrid_for_few_right_hand_sides_in_the_middle_band(self):
+    @pytest.mark.parametrize("engine", ["superlu", "pardiso"])
+    def test_multigrid_for_few_right_hand_sides_in_the_middle_band(self, engine):
         for n_rhs in range(1, solve.DIRECT_MIN_RHS):
-            assert solve.choose_method(solve.DIRECT_ALWAYS_UNKNOWNS + 1, n_rhs) == "multigrid"
-            assert solve.choose_method(solve.DIRECT_MAX_UNKNOWNS, n_rhs) == "multigrid"
+            assert solve.choose_method(solve.DIRECT_ALWAYS_UNKNOWNS + 1, n_rhs, engine=engine) == "multigrid"
+            assert solve.choose_method(solve.DIRECT_MAX_UNKNOWNS, n_rhs, engine=engine) == "multigrid"
 
-    def test_multigrid_above_the_documented_size(self):
+    @pytest.mark.parametrize("engine", ["superlu", "pardiso"])
+    def test_multigrid_above_the_documented_size(self, engine):
         for n_rhs in (1, 9, 49, 1000):
-            assert solve.choose_method(solve.DIRECT_MAX_UNKNOWNS + 1, n_rhs) == "multigrid"
-            assert solve.choose_method(16_000_000, n_rhs) == "multigrid"
+            assert solve.choose_method(solve.DIRECT_MAX_UNKNOWNS + 1, n_rhs, engine=engine) == "multigrid"
+            assert solve.choose_method(16_000_000, n_rhs, engine=engine) == "multigrid"
+
+    def test_cholmod_is_bounded_by_memory_not_size(self, caplog):
+        need = solve.factor_bytes(16_000_000, "cholmod")
+        assert solve.choose_method(16_000_000, 9, engine="cholmod") == "direct"
+        assert solve.choose_method(16_000_000, 1, memory=need * 1.01, engine="cholmod") == "direct"
+        with caplog.at_level("INFO", logger="landflow"):
+            assert solve.choose_method(16_000_000, 9, memory=need * 0.99, engine="cholmod") == "multigrid"
+        assert "the cholmod factor of 16000000 unknowns" in caplog.text
 
     def test_auto_records_its_choice(self):
         graph = lognormal_graph(20, 20, [(2, 2), (17, 15)])
@@ -87,6 +99,35 @@ class TestBackendsAgree:
         np.testing.assert_allclose(lf.current_density(b), lf.current_density(a), rtol=1e-10, atol=1e-12)
         assert b.solvers[0].record()["engine"] == "cholmod"
 
+    @pytest.mark.skipif(not HAVE_CHOLMOD, reason="cvxopt (CHOLMOD, the 'fast' extra) is not installed")
+    def test_cholmod_on_a_landscape_in_pieces_equals_superlu(self):
+        # two pieces, each with patches, and a masked column between them: two factorisations,
+        # each in its own nested-dissection order, neither a slice of the whole Laplacian
+        rng = np.random.default_rng(11)
+        values = np.exp(rng.normal(size=(30, 41)))
+        values[:, 20] = np.nan
+        labels = np.zeros(values.shape, dtype=np.int64)
+        labels[3, 3], labels[25, 15], labels[4, 30], labels[26, 38], labels[15, 35] = 1, 2, 3, 4, 5
+        graph = lf.build_graph(lf.Grid.from_array(values), labels)
+        a = lf.patch_voltages(graph, method="superlu")
+        b = lf.patch_voltages(graph, method="cholmod")
+        assert len(b.solvers) == 2
+        np.testing.assert_allclose(lf.effective_resistance(b), lf.effective_resistance(a), rtol=1e-10)
+
+    @pytest.mark.skipif(not HAVE_CHOLMOD, reason="cvxopt (CHOLMOD, the 'fast' extra) is not installed")
+    def test_cholmod_dense_and_sparse_right_hand_sides_agree(self):
+        graph = lognormal_graph(40, 30, [(2, 2), (35, 25)], seed=4)
+        sub = graph.laplacian()[1:, 1:]
+        solver = solve.factorize(sub, method="cholmod")
+        rng = np.random.default_rng(0)
+        dense_rhs = rng.normal(size=(sub.shape[0], 3))
+        sparse_rhs = np.zeros((sub.shape[0], 3))
+        sparse_rhs[[0, 100, 500], [0, 1, 2]] = 1.0
+        for b in (dense_rhs, sparse_rhs, sparse_rhs[:, 1]):
+            x = solver.solve(b)
+            assert x.shape == b.shape
+            np.testing.assert_allclose(sub @ x, b, atol=1e-9)
+
     def test_superlu_agrees_with_scipy_spsolve(self):
         # scipy's general sparse solver on the grounded Laplacian, no landflow ordering involved.
         import scipy.sparse.linalg as sla
@@ -115,6 +156,36 @@ class TestOrdering:
         order = nested_dissection_order(graph)
         ordered = solve.factorize(sub, method="superlu", ordering=order[order != 0] - 1).solve(rhs)
         np.testing.assert_allclose(ordered, plain, rtol=1e-10, atol=1e-12)
+
+    @pytest.mark.parametrize("shape", [(1, 5), (3, 7), (17, 5), (100, 1), (0, 3), (257, 300), (513, 129), (999, 2)])
+    @pytest.mark.parametrize("leaf", [1, 4, 16])
+    def test_nested_dissection_ranks_follow_the_recursive_definition(self, shape, leaf):
+        # George 1973's dissection written out plainly: both halves of the longer side, then the cutting line;
+        # landflow computes each box shape's ranks once and copies them, which must give the same order.
+        from landflow.graph import _dissection_rank
+        expected = np.empty(shape, dtype=np.int64)
+        counter = [0]
+
+        def put(r0, r1, c0, c1):
+            n = (r1 - r0) * (c1 - c0)
+            expected[r0:r1, c0:c1] = (counter[0] + np.arange(n)).reshape(r1 - r0, c1 - c0)
+            counter[0] += n
+
+        def cut(r0, r1, c0, c1):
+            h, w = r1 - r0, c1 - c0
+            if h <= 0 or w <= 0:
+                return
+            if h * w <= leaf or min(h, w) <= 2 and max(h, w) <= leaf:
+                put(r0, r1, c0, c1)
+            elif h >= w:
+                m = r0 + h // 2
+                cut(r0, m, c0, c1), cut(m + 1, r1, c0, c1), put(m, m + 1, c0, c1)
+            else:
+                m = c0 + w // 2
+                cut(r0, r1, c0, m), cut(r0, r1, m + 1, c1), put(r0, r1, m, m + 1)
+
+        cut(0, shape[0], 0, shape[1])
+        np.testing.assert_array_equal(_dissection_rank(shape, leaf), expected)
 
     def test_nested_dissection_fills_less_than_minimum_degree(self):
         graph = lognormal_graph(80, 80, [(2, 2), (70, 70)])
@@ -145,7 +216,7 @@ class TestErrors:
         solver = voltages.solvers[0]
         assert solver.record()["right_hand_sides"] == 1
         with pytest.raises(SolverError, match="was released after its solves"):
-            solver.solve(np.ones(solver.matrix.shape[0]))
+            solver.solve(np.ones(solver.n_unknowns))
 
     @pytest.mark.parametrize("engine, package", [("pardiso", "pypardiso"), ("cholmod", "cvxopt")])
     def test_engine_missing(self, monkeypatch, engine, package):
@@ -239,6 +310,36 @@ class TestMemoryAwareChoice:
         voltages = lf.patch_voltages(graph, method="superlu")
         record = voltages.solvers[0].record()
         assert 12 * record["factor_nonzeros"] <= solve.factor_bytes(record["unknowns"], "superlu")
+
+    @pytest.mark.skipif(not HAVE_CHOLMOD, reason="cvxopt (CHOLMOD, the 'fast' extra) is not installed")
+    def test_cholmod_factor_size_from_its_symbolic_analysis(self):
+        # The nonzeros read from CHOLMOD's symbolic analysis against the factor L itself, as cvxopt
+        # returns it after the numeric phase (cholmod.getfactor; it may store some explicit zeros of
+        # the supernodes, never fewer entries), and the bytes against those nonzeros.
+        from cvxopt import cholmod
+        graph = lognormal_graph(50, 45, [(5, 5), (40, 40)], seed=2)
+        record = lf.patch_voltages(graph, method="cholmod").solvers[0].record()
+        assert record["factor_ordering"] == "given"
+        sub = graph.laplacian()[1:, 1:]
+        order = nested_dissection_order(graph)
+        factor, size = solve._cholmod_factor(solve._cholmod_system(sub), order[order != 0] - 1)
+        assert size["nonzeros"] == record["factor_nonzeros"]
+        stored = len(cholmod.getfactor(factor))
+        assert size["nonzeros"] <= stored <= 2 * size["nonzeros"]
+        assert 8 * size["nonzeros"] <= record["factor_bytes"] <= solve.factor_bytes(sub.shape[0], "cholmod")
+
+    @pytest.mark.skipif(not HAVE_CHOLMOD, reason="cvxopt (CHOLMOD, the 'fast' extra) is not installed")
+    def test_cholmod_too_large_after_its_symbolic_analysis_falls_back_to_multigrid(self, monkeypatch, caplog):
+        graph = lognormal_graph(40, 40, [(3, 3), (35, 30), (20, 20)], seed=8)
+        monkeypatch.setattr(solve, "available_memory", lambda: 1e5)     # 100 kB: no factor fits
+        with caplog.at_level("INFO", logger="landflow"):
+            voltages = lf.patch_voltages(graph, method="direct", tolerance=1e-10)
+        assert voltages.solvers[0].record()["engine"] == "cholmod"     # asked for 'direct': no fallback
+        with caplog.at_level("INFO", logger="landflow"):
+            fallback = lf.patch_voltages(graph, method="auto", tolerance=1e-10)
+        assert fallback.solvers[0].record()["method"] == "multigrid"
+        assert "multigrid instead of a direct factorisation: the CHOLMOD factor of" in caplog.text
+        np.testing.assert_allclose(lf.effective_resistance(fallback), lf.effective_resistance(voltages), rtol=1e-7)
 
     def test_available_memory_is_read_on_linux(self):
         memory = solve.available_memory()

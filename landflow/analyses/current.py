@@ -5,6 +5,7 @@ from __future__ import annotations
 import numpy as np
 
 from ..errors import InputError
+from ..solve import one_blas_thread
 
 __all__ = ["edge_current", "pair_current", "current_density", "edge_current_density", "pair_weights"]
 
@@ -154,13 +155,25 @@ def _edge_sums(voltages, w, i, j, c, *, progress=None):
     groups = _product_groups(voltages.component_of_patch, w)
     pairs_of = [(a, np.flatnonzero(w[a, a + 1:]) + a + 1) for a in range(k - 1)]
     block = max(1024, (EDGE_BLOCK * 16) // max(k, 1))
+    with one_blas_thread():         # small products per block: BLAS threads would only wait for each other
+        _sum_blocks(u, i, j, c, edge_sum, block, groups, pairs_of, w, k, progress)
+    return edge_sum
+
+
+def _sum_blocks(u, i, j, c, edge_sum, block, groups, pairs_of, w, k, progress):
+    """Fill edge_sum (the weighted sum over pairs of |voltage drop| times conductance) block by block."""
+    # Two (block, k) buffers serve every block: fresh temporaries of this size each cost their page faults.
+    here = np.empty((min(block, c.size), k))
+    there = np.empty_like(here)
     for start in range(0, c.size, block):
         stop = min(start + block, c.size)
-        drop = u[i[start:stop]] - u[j[start:stop]]          # (block, k)
+        drop = np.take(u, i[start:stop], axis=0, out=here[:stop - start])
+        np.subtract(drop, np.take(u, j[start:stop], axis=0, out=there[:stop - start]), out=drop)   # (block, k)
         total = np.zeros(stop - start)
         if groups is not None:
             for members, weight in groups:
-                total += _sorted_pair_sum(drop if members.size == k else drop[:, members], weight)
+                whole = members.size == k       # then the only group, and drop may be sorted in place
+                total += _sorted_pair_sum(drop if whole else drop[:, members], weight, in_place=whole)
         else:
             for a, others in pairs_of:
                 if others.size:
@@ -168,7 +181,6 @@ def _edge_sums(voltages, w, i, j, c, *, progress=None):
         edge_sum[start:stop] = c[start:stop] * total
         if progress:
             progress(stop, c.size)
-    return edge_sum
 
 
 def _product_groups(component_of_patch, w):
@@ -204,11 +216,17 @@ def _product_groups(component_of_patch, w):
     return groups
 
 
-def _sorted_pair_sum(drop, weight):
-    """sum over column pairs a < b of s_a s_b |drop_a - drop_b|, per row, by sorting each row."""
+def _sorted_pair_sum(drop, weight, in_place=False):
+    """sum over column pairs a < b of s_a s_b |drop_a - drop_b|, per row, by sorting each row.
+
+    ``in_place``: with equal weights, sort ``drop`` itself rather than a copy.
+    """
     m = drop.shape[1]
     if np.all(weight == weight[0]):
         coef = (2.0 * np.arange(m) - (m - 1)) * weight[0] ** 2
+        if in_place:
+            drop.sort(axis=1)
+            return drop @ coef
         return np.sort(drop, axis=1) @ coef
     order = np.argsort(drop, axis=1)
     d = np.take_along_axis(drop, order, axis=1)

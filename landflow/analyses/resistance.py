@@ -6,6 +6,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
+import scipy.sparse as sp
 
 from ..errors import InputError
 from ..graph import nested_dissection_order
@@ -13,8 +14,8 @@ from ..solve import available_memory, choose_method, direct_engine, factorize
 
 __all__ = ["PatchVoltages", "patch_voltages", "effective_resistance", "resistance_table"]
 
-#: Numbers per block of right-hand sides (32 M: 256 MB of float64).
-RHS_BLOCK_VALUES = 1 << 25
+#: Numbers per block of right-hand sides (16 M: 128 MB of float64).
+RHS_BLOCK_VALUES = 1 << 24
 
 
 @dataclass(eq=False)
@@ -90,49 +91,62 @@ def patch_voltages(graph, *, method="auto", tolerance=1e-8, progress=None):
                          "Add patches or check the patch labels.")
     comp = graph.components
     comp_of_patch = comp[:k]
+    # np.zeros takes its pages from the system only as they are written: after the factorisation
     potential = np.zeros((graph.n_nodes, k))
-    laplacian = graph.laplacian()
     order = None
     solvers = []
-    for c in np.unique(comp_of_patch):
+    grounded = [c for c in np.unique(comp_of_patch) if np.count_nonzero(comp_of_patch == c) >= 2]
+    for c in grounded:
         members = np.flatnonzero(comp_of_patch == c)
-        if members.size < 2:
-            continue
         ground = members[0]
         n_unknowns = int(np.count_nonzero(comp == c)) - 1
         wanted = (choose_method(n_unknowns, members.size - 1, memory=available_memory())
                   if method == "auto" else method)
-        if wanted == "superlu" or wanted == "direct" and direct_engine() == "superlu":
+        engine = direct_engine() if wanted == "direct" else wanted
+        ordering = None
+        if engine in ("superlu", "cholmod") and order is None:
             # Unknowns in nested-dissection order: the factor is then far sparser than with
-            # SuperLU's own minimum-degree ordering on a grid (docs/performance.md).
-            if order is None:
-                order = nested_dissection_order(graph)
+            # SuperLU's own minimum-degree ordering on a grid, and CHOLMOD's symbolic analysis
+            # is faster than with its AMD ordering (docs/performance.md).
+            order = nested_dissection_order(graph)
+        if engine == "superlu":         # SuperLU gets the matrix already in that order
             keep = order[(comp[order] == c) & (order != ground)]
             ordering = np.arange(keep.size)
         else:
             keep = np.flatnonzero(comp == c)
             keep = keep[keep != ground]
-            ordering = None
+            if engine == "cholmod":     # CHOLMOD permutes the matrix itself
+                ordering = _positions(keep, order[(comp[order] == c) & (order != ground)])
         # the whole graph grounded at node 0, in natural order: a slice, without index arrays
-        sliced = keep.size == graph.n_nodes - 1 and ground == 0 and ordering is None
-        sub = laplacian[1:, 1:] if sliced else laplacian[keep][:, keep]
+        sliced = keep.size == graph.n_nodes - 1 and ground == 0 and engine != "superlu"
+        rows = slice(1, None) if sliced else keep
         if progress:
             progress(f"solving component with {keep.size:,} unknowns and {members.size} patches")
-        solver = factorize(sub, method=wanted, tolerance=tolerance, n_rhs=members.size - 1, ordering=ordering)
-        del sub
+        # Every piece of a connected component less one node touches that node, so the system is grounded
+        # by construction and factorize need not look for loose pieces. The grounded matrix is passed as a
+        # temporary and the residuals come from the graph (product), so that factorize can let the matrix
+        # go once the engine has its own copy: the factor's peak comes without it.
+        solver = factorize(_grounded_matrix(graph, keep, sliced), method=wanted, tolerance=tolerance,
+                           n_rhs=members.size - 1, ordering=ordering, pieces_grounded=True,
+                           fallback=method == "auto", product=_grounded_product(graph, rows))
         position = _positions(keep, members[1:])
         # Right-hand sides go in blocks of about RHS_BLOCK_VALUES numbers, so that the
-        # solver's temporary copies stay small next to the factor whatever k is.
+        # solver's temporary copies stay small next to the factor whatever k is (one column at a time
+        # from 16 million unknowns on). Column-major, as the direct engines take and give them.
         width = max(1, RHS_BLOCK_VALUES // max(keep.size, 1))
         for first in range(0, members.size - 1, width):
             cols = np.arange(first, min(first + width, members.size - 1))
-            rhs = np.zeros((keep.size, cols.size))
+            rhs = np.zeros((keep.size, cols.size), order="F")
             rhs[position[cols], np.arange(cols.size)] = 1.0
             solution = solver.solve(rhs)
-            if sliced:
-                potential[1:, members[1 + cols]] = solution
+            targets = members[1 + cols]
+            if np.all(np.diff(targets) == 1):          # neighbouring columns: a slice, not an index array
+                targets = slice(int(targets[0]), int(targets[-1]) + 1)
+                potential[rows, targets] = solution
+            elif sliced:
+                potential[rows, targets] = solution
             else:
-                potential[np.ix_(keep, members[1 + cols])] = solution
+                potential[np.ix_(keep, targets)] = solution
             del rhs, solution
         solver.release()
         solvers.append(solver)
@@ -191,6 +205,43 @@ def resistance_table(voltages, resistance=None):
             "commute_time": np.where(apart, np.inf, 2.0 * vol_ab * r),
         })
     return table
+
+
+def _grounded_matrix(graph, keep, sliced):
+    """L[keep][:, keep], the Laplacian grounded outside ``keep`` (``sliced``: keep is 1..n-1, a slice)."""
+    laplacian = graph.laplacian()
+    return laplacian[1:, 1:] if sliced else _symmetric_submatrix(laplacian, keep)
+
+
+def _grounded_product(graph, rows):
+    """x -> L[rows][:, rows] @ x (one column or several), from the graph's conductance: L x = C_x x - A x.
+
+    The residual checks of the solves use it instead of the grounded matrix, which is then freed once
+    factorised: on 16 million cells that matrix takes 1.7 GB next to the factor.
+    """
+    diagonal = graph.total_conductance
+
+    def product(x):
+        full = np.zeros((graph.n_nodes,) + x.shape[1:])
+        full[rows] = x
+        out = graph.conductance @ full
+        np.subtract(diagonal.reshape((-1,) + (1,) * (x.ndim - 1)) * full, out, out=out)
+        return out[rows]
+    return product
+
+
+def _symmetric_submatrix(matrix, keep):
+    """``matrix[keep][:, keep]`` of a symmetric CSR matrix, with sorted indices, by two row gathers.
+
+    Gathering rows is cheap in CSR and gathering columns is not; for a symmetric matrix the columns
+    ``keep`` of the gathered rows are the rows ``keep`` of their transpose (0.1 s against scipy's 0.4 s
+    for column indexing at a million unknowns, on a quiet machine).
+    """
+    rows = matrix[keep]
+    columns = rows.tocsc()          # the transpose of rows, read as CSR: sorted indices
+    transposed = sp.csr_array((columns.data, columns.indices, columns.indptr), shape=rows.shape[::-1])
+    del rows, columns
+    return transposed[keep]
 
 
 def _positions(keep, nodes):
