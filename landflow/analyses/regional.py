@@ -8,7 +8,13 @@ from affine import Affine
 from ..errors import InputError
 from ..grid import Grid
 
-__all__ = ["ring_nodes", "ring_offset", "buffered_window", "ring_current", "ring_current_grid"]
+__all__ = ["ring_nodes", "ring_offset", "buffered_window", "ring_current", "ring_current_grid", "shifted"]
+
+
+def shifted(transform, row, col):
+    """The transform of a window whose top-left cell is (row, col) of ``transform``'s grid (may be negative)."""
+    t = transform
+    return Affine(t.a, t.b, t.c + t.a * col + t.b * row, t.d, t.e, t.f + t.d * col + t.e * row)
 
 
 def ring_offset(seed):
@@ -85,7 +91,7 @@ def ring_current_grid(grid, *, buffer_cells, k, buffer_value, offset=0.0):
     """The buffered grid and the ring's patch labels that :func:`ring_current` solves on."""
     values, mask = buffered_window(grid.values, grid.mask, buffer_cells, buffer_value)
     br, bc = _pair(buffer_cells)
-    transform = grid.transform * Affine.translation(-bc, -br)
+    transform = shifted(grid.transform, -br, -bc)
     big = Grid(values, mask, transform, grid.crs, source=grid.source, nodata=grid.nodata)
     labels = np.zeros(values.shape, dtype=np.int64)
     r, c = ring_nodes(values.shape, k, offset)

@@ -321,7 +321,9 @@ def _picture(path, cog, *, relative, units):
         shape = (max(1, int(src.height / step)), max(1, int(src.width / step)))
         data = src.read(1, out_shape=shape, resampling=rasterio.enums.Resampling.average).astype(float)
         data[data == src.nodata] = np.nan
-        t = src.transform * Affine.scale(src.width / shape[1], src.height / shape[0])
+        sx, sy = src.width / shape[1], src.height / shape[0]
+        a = src.transform
+        t = Affine(a.a * sx, a.b, a.c, a.d, a.e * sy, a.f)
         grid = Grid(np.nan_to_num(data, nan=1.0), np.isfinite(data), t, src.crs)
     quicklook(path, data, MapGeometry.from_grid(grid), kind="log",
               title="Regional current" + (" relative to a uniform landscape" if relative else ""), units=units)

@@ -13,7 +13,7 @@ from pathlib import Path
 import numpy as np
 from affine import Affine
 
-from ..analyses.regional import ring_current
+from ..analyses.regional import ring_current, shifted
 from ..errors import InputError
 from ..grid import Grid
 from ..io.windows import read_tile, read_window, write_tile
@@ -82,7 +82,7 @@ def _read(job):
 
 
 def _window_grid(job, values, mask):
-    t = Affine(*job.transform) * Affine.translation(job.col0, job.row0)
+    t = shifted(Affine(*job.transform), job.row0, job.col0)
     return Grid(values, mask, t, job.crs, source=job.source)
 
 
@@ -147,7 +147,7 @@ def _finished(job, digest):
 def _write(job, core, digest, started, solvers):
     from ..io._atomic import sha256_of
     r, c = job.row0 + job.core[0], job.col0 + job.core[1]
-    t = Affine(*job.transform) * Affine.translation(c, r)
+    t = shifted(Affine(*job.transform), r, c)
     write_tile(job.tile_path, core, transform=t, crs=job.crs)
     record = {"tile": job.name, "digest": digest, "sha256": sha256_of(job.tile_path),
               "core": [int(r), int(c), int(job.core[2]), int(job.core[3])],
