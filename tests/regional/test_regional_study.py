@@ -74,7 +74,7 @@ def test_one_tile_equals_current_density_with_ring_nodes_as_patches(demo):
 
 def test_tiled_demo_on_a_local_cluster_resumes_and_matches_one_process(demo):
     distributed = pytest.importorskip("distributed")
-    study = _study(demo, "resistance.tif")
+    study = _study(demo, "resistance.tif", ring_nodes=8)
     with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
                                   dashboard_address=":0") as cluster, distributed.Client(cluster) as client:
         first = run_regional(study, client=client)
@@ -100,33 +100,35 @@ def test_tiled_demo_on_a_local_cluster_resumes_and_matches_one_process(demo):
     alone = demo / "alone"
     alone.mkdir()
     shutil.copy(demo / "resistance.tif", alone / "resistance.tif")
-    run_regional(_study(alone, "resistance.tif"), workers=0)
+    run_regional(_study(alone, "resistance.tif", ring_nodes=8), workers=0)
     np.testing.assert_array_equal(_read(alone / "out" / "regional_current.tif")[0], mosaic)
     finite = mosaic[np.isfinite(mosaic)]
     assert np.isfinite(mosaic).sum() > 0.9 * mosaic.size and finite.min() > 0
 
 
-def test_changed_settings_redo_every_tile_and_the_seed_reproduces(demo):
-    study = _study(demo, "resistance.tif", seed=3, relative_to_uniform=False)
+def test_changed_settings_redo_every_tile_and_the_seed_reproduces(tmp_path, tif):
+    tif("land.tif", np.exp(np.random.default_rng(2).normal(0, 1, (60, 50))))
+    keys = dict(tile=30, margin=100.0, buffer_width=50.0, ring_nodes=8, relative_to_uniform=False)
+    study = _study(tmp_path, "land.tif", seed=3, **keys)
     first = run_regional(study, workers=0)
-    a = _read(demo / "out" / "regional_current.tif")[0]
-    assert run_regional(study, workers=0)["regional"]["tiles_up_to_date"] == 6
-    _study(demo, "resistance.tif", seed=4, relative_to_uniform=False)
-    assert run_regional(study, workers=0)["regional"]["tiles_solved"] == 6
-    b = _read(demo / "out" / "regional_current.tif")[0]
+    a = _read(tmp_path / "out" / "regional_current.tif")[0]
+    assert run_regional(study, workers=0)["regional"]["tiles_up_to_date"] == 4
+    _study(tmp_path, "land.tif", seed=4, **keys)
+    assert run_regional(study, workers=0)["regional"]["tiles_solved"] == 4
+    b = _read(tmp_path / "out" / "regional_current.tif")[0]
     assert not np.allclose(a, b, equal_nan=True)
-    _study(demo, "resistance.tif", seed=3, relative_to_uniform=False)
-    assert run_regional(study, workers=0)["regional"]["tiles_solved"] == 6
-    np.testing.assert_array_equal(_read(demo / "out" / "regional_current.tif")[0], a)
+    _study(tmp_path, "land.tif", seed=3, **keys)
+    assert run_regional(study, workers=0)["regional"]["tiles_solved"] == 4
+    np.testing.assert_array_equal(_read(tmp_path / "out" / "regional_current.tif")[0], a)
     assert first["settings"]["analyses"]["regional_current"]["seed"] == 3
 
 
 def test_tiled_map_follows_the_untiled_one(tmp_path, tif):
-    """With a margin, the tiled map of a 160 x 160 log-normal landscape correlates closely with the whole map."""
+    """With a margin, the tiled map of a 120 x 120 log-normal landscape correlates closely with the whole map."""
     rng = np.random.default_rng(9)
-    tif("land.tif", np.exp(rng.normal(0, 1, (160, 160))))
+    tif("land.tif", np.exp(rng.normal(0, 1, (120, 120))))
     maps = {}
-    for name, tile in (("whole", 200), ("tiled", 80)):
+    for name, tile in (("whole", 200), ("tiled", 60)):
         folder = tmp_path / name
         folder.mkdir()
         shutil.copy(tmp_path / "land.tif", folder / "land.tif")
