@@ -210,7 +210,9 @@ def _execute(tasks, *, workers, scheduler, client, progress):
         client, cluster = _local_cluster(workers or min(os.cpu_count() or 1, len(tasks)))
     try:
         stamp = time.time_ns()
-        futures = [client.submit(function, job, key=f"landflow-tile-{job.name}-{stamp}", pure=False)
+        # a task is a pure function of its window and settings, and writes its tile atomically: when a worker
+        # is lost, Dask may run it again elsewhere
+        futures = [client.submit(function, job, key=f"landflow-tile-{job.name}-{stamp}", pure=False, retries=1)
                    for function, job in tasks]
         try:
             for future in distributed.as_completed(futures):
