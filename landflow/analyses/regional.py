@@ -152,7 +152,7 @@ def ring_current(grid, *, buffer_cells, k, buffer_value, offset=0.0, kind="resis
     if min(_pair(buffer_cells)) < 1:
         raise InputError(f"the buffer must be at least one cell wide (the ring nodes sit on its outer edge); "
                          f"got {buffer_cells}.")
-    if not np.isfinite(buffer_value) or (buffer_value <= 0 if kind == "resistance" else buffer_value < 0):
+    if not np.isfinite(buffer_value) or buffer_value <= 0:
         raise InputError(f"the buffer's {kind} must be a finite number above 0; got {buffer_value!r}.")
     big, labels = ring_current_grid(grid, buffer_cells=buffer_cells, k=k, buffer_value=buffer_value,
                                     offset=offset)

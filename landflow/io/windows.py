@@ -16,7 +16,8 @@ from ..errors import InputError
 from ._atomic import atomic_path
 from .rasters import COG_PROFILE, NODATA
 
-__all__ = ["RasterInfo", "raster_info", "read_window", "sample_values", "write_tile", "read_tile", "Mosaic"]
+__all__ = ["RasterInfo", "raster_info", "read_window", "sample_values", "write_tile", "read_tile", "Mosaic",
+           "crs_from_text"]
 
 #: GDAL's block cache while mosaicking and building overviews (bytes): the mosaic's memory bound.
 MOSAIC_CACHE_BYTES = 256 * 1024 * 1024
@@ -36,6 +37,12 @@ class RasterInfo:
     @property
     def cell_size(self):
         return abs(self.transform.a), abs(self.transform.e)
+
+
+def crs_from_text(text):
+    """A rasterio CRS from its text (EPSG code or WKT), or None: tasks carry the CRS as text."""
+    from rasterio.crs import CRS
+    return None if text is None else CRS.from_user_input(text)
 
 
 def _open(path, what):

@@ -16,7 +16,7 @@ from affine import Affine
 from ..analyses.regional import ring_current, shifted
 from ..errors import InputError
 from ..grid import Grid
-from ..io.windows import read_tile, read_window, write_tile
+from ..io.windows import crs_from_text, read_tile, read_window, write_tile
 
 __all__ = ["TileJob", "tile_flow", "solve_tile", "uniform_flow", "solve_uniform", "settings_digest"]
 
@@ -83,7 +83,8 @@ def _read(job):
 
 def _window_grid(job, values, mask):
     t = shifted(Affine(*job.transform), job.row0, job.col0)
-    return Grid(values, mask, t, job.crs, source=job.source)
+    # a CRS object, so that a longitude/latitude grid measures its cells in metres (Grid.cell_lengths)
+    return Grid(values, mask, t, crs_from_text(job.crs), source=job.source)
 
 
 def _core(job, flow):

@@ -180,3 +180,19 @@ def test_bad_cells_name_the_tile(tmp_path, tif):
 def test_workers_flag_is_only_for_regional_studies(capsys):
     assert main(["run", str(DEMO / "study.toml"), "--workers", "2"]) == 2
     assert "only apply to regional studies" in capsys.readouterr().err
+
+
+def test_longitude_latitude_tiles_measure_cells_in_metres(tmp_path, tif):
+    """A tile of a lon/lat raster is solved on the same metre lengths as the whole raster read by read_grid."""
+    values = np.exp(np.random.default_rng(8).normal(0, 1, (30, 40)))
+    tif("geo.tif", values, cell=(0.001, 0.001), origin=(10.0, 60.0), crs="EPSG:4326")
+    study = _study(tmp_path, "geo.tif", tile=100, buffer_width=0.004, ring_nodes=8, relative_to_uniform=False)
+    study, info, plan, extra = regional_plan(study)
+    jobs, _, _ = _jobs(study, info, plan, extra, tmp_path)
+    flow, _, _ = tile_flow(jobs[0])
+    grid = lf.read_grid(tmp_path / "geo.tif")
+    assert grid.is_geographic
+    expected, _ = lf.analyses.regional.ring_current(grid, buffer_cells=plan.buffer, k=8,
+                                                    buffer_value=extra["buffer_value"], offset=jobs[0].offset)
+    b = plan.buffer[0]
+    np.testing.assert_allclose(flow, expected[b:-b, b:-b], rtol=1e-10)
