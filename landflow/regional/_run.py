@@ -280,7 +280,7 @@ def run_regional(study, *, workers=None, scheduler=None, client=None, stream=Non
                 progress.event(result["status"])
         solved = time.perf_counter() - started
         progress.write("writing the mosaic")
-        units = ("current relative to the same ring on a uniform landscape (1 = as on uniform)"
+        units = ("relative to a uniform landscape (1 = as on uniform)"
                  if s["relative_to_uniform"] else "A (sum over ring-node pairs of unit currents)")
         description = "current summed over all pairs of ring nodes around each tile" + (
             ", divided by that on a uniform landscape" if s["relative_to_uniform"] else "")
