@@ -118,10 +118,11 @@ def check_regional(study):
              f"{rows * cols:,} cells of {width:g} x {height:g} map units."]
     if plan.tiled:
         gr, gc = plan.grid
+        cut = [what for what, size in (("row", rows), ("column", cols)) if size % plan.tile]
         lines.append(f"tiling plan: {gr} x {gc} = {len(plan.tiles)} tiles of {plan.tile} x {plan.tile} cells, each "
                      f"widened by a margin of {extra['margin']:g} map units ({plan.margin[0]} x {plan.margin[1]} "
-                     "cells) of landscape on every side; the last row and column of tiles are cut to the "
-                     "landscape")
+                     "cells) of landscape on every side"
+                     + (f"; the last {' and '.join(cut)} of tiles are cut to the landscape" if cut else ""))
     else:
         lines.append(f"tiling plan: 1 tile (the landscape fits in a tile of {plan.tile} cells): solved whole, "
                      "no margin")
