@@ -122,7 +122,7 @@ def plan_tiles(shape, cell_size, *, tile, margin, buffer_width, ring_nodes):
 
 #: Bytes per unknown besides the factor and the potentials: the graph (CSR conductance, edge lists, node
 #: numbering), the window's arrays and the solver's copies. Chosen so that the estimate stays above the peak
-#: measured for one task (3.6 GB at 1.69 million unknowns, 32 ring nodes, SuperLU; estimate 4.4 GB).
+#: measured for one task (3.9 GB at 1.69 million unknowns, 32 ring nodes, SuperLU; estimate 4.4 GB).
 OTHER_BYTES_PER_UNKNOWN = 300
 
 
