@@ -88,6 +88,12 @@ def _regional(args):
 
 def _batch(args, studies, workers):
     from .study.batch import run_batch
+    regional = [s for s in studies if _is_regional(s)]
+    if regional:
+        print(f"landflow: error: {regional[0]} is a regional study ([analyses.regional_current]); run it with "
+              "'landflow run', which spreads its tiles over the workers (--workers N or --scheduler ADDRESS).",
+              file=sys.stderr)
+        return 2
     if workers is not None and workers < 0:
         print(f"landflow: error: --workers must be 0 or more; got {workers}.", file=sys.stderr)
         return 2

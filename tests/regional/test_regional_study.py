@@ -196,3 +196,42 @@ def test_longitude_latitude_tiles_measure_cells_in_metres(tmp_path, tif):
                                                     buffer_value=extra["buffer_value"], offset=jobs[0].offset)
     b = plan.buffer[0]
     np.testing.assert_allclose(flow, expected[b:-b, b:-b], rtol=1e-10)
+
+
+def test_a_run_stopped_by_sigint_resumes_from_its_finished_tiles(tmp_path, tif):
+    """Ctrl-C during the tiles: exit 130, no mosaic; the next run solves only the tiles that were missing."""
+    import os
+    import signal
+    import subprocess
+    import sys
+    import time
+    tif("land.tif", np.exp(np.random.default_rng(6).normal(0, 1, (120, 120))))
+    study = _study(tmp_path, "land.tif", tile=30, margin=100.0, buffer_width=50.0, ring_nodes=8)
+    env = {**os.environ, "PYTHONPATH": str(Path(__file__).resolve().parents[2])}
+    process = subprocess.Popen([sys.executable, "-m", "landflow", "run", str(study), "--workers", "0"], env=env,
+                               stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    tiles = tmp_path / "out" / ".landflow-tiles"
+    deadline = time.monotonic() + 60
+    while len(list(tiles.glob("r*.json"))) < 2 and time.monotonic() < deadline and process.poll() is None:
+        time.sleep(0.02)
+    process.send_signal(signal.SIGINT)
+    _, err = process.communicate(timeout=60)
+    assert process.returncode == 130, err
+    assert "interrupted" in err
+    assert not (tmp_path / "out" / "regional_current.tif").exists()
+    finished = len(list(tiles.glob("r*.json")))
+    assert 2 <= finished < 16
+    resumed = run_regional(study, workers=0)
+    assert resumed["regional"]["tiles_up_to_date"] == finished
+    assert resumed["regional"]["tiles_solved"] == 16 - finished
+    fresh = tmp_path / "fresh"
+    fresh.mkdir()
+    shutil.copy(tmp_path / "land.tif", fresh / "land.tif")
+    run_regional(_study(fresh, "land.tif", tile=30, margin=100.0, buffer_width=50.0, ring_nodes=8), workers=0)
+    np.testing.assert_array_equal(_read(tmp_path / "out" / "regional_current.tif")[0],
+                                  _read(fresh / "out" / "regional_current.tif")[0])
+
+
+def test_batch_points_a_regional_study_to_run(capsys):
+    assert main(["batch", str(DEMO / "regional.toml"), "--workers", "0"]) == 2
+    assert "is a regional study" in capsys.readouterr().err
