@@ -16,8 +16,8 @@ from ..errors import InputError
 from ._atomic import atomic_path
 from .rasters import COG_PROFILE, NODATA
 
-__all__ = ["RasterInfo", "raster_info", "read_window", "sample_values", "write_tile", "read_tile", "Mosaic",
-           "crs_from_text"]
+__all__ = ["RasterInfo", "raster_info", "read_window", "sample_values", "read_decimated", "write_tile",
+           "read_tile", "Mosaic", "crs_from_text"]
 
 #: GDAL's block cache while mosaicking and building overviews (bytes): the mosaic's memory bound.
 MOSAIC_CACHE_BYTES = 256 * 1024 * 1024
@@ -116,6 +116,27 @@ def sample_values(path, *, max_cells=4_000_000, what="raster"):
         raw = src.read(1, out_shape=shape, resampling=rasterio.enums.Resampling.nearest)
         values, mask = _valid(raw, src.nodata)
     return values[mask], exact
+
+
+def read_decimated(path, max_side=1200):
+    """An even, averaged copy of band 1 at most ``max_side`` cells on a side (GDAL reads the overviews).
+
+    Returns
+    -------
+    values : ndarray of float64, NaN for nodata
+    transform : the copy's affine transform
+    crs
+    """
+    from affine import Affine
+    with rasterio.open(path) as src:
+        step = max(1.0, max(src.height, src.width) / max_side)
+        shape = (max(1, int(src.height / step)), max(1, int(src.width / step)))
+        data = src.read(1, out_shape=shape, resampling=rasterio.enums.Resampling.average).astype(np.float64)
+        if src.nodata is not None:
+            data[data == src.nodata] = np.nan
+        a = src.transform
+        transform = Affine(a.a * src.width / shape[1], a.b, a.c, a.d, a.e * src.height / shape[0], a.f)
+        return data, transform, src.crs
 
 
 def write_tile(path, array, *, transform, crs):

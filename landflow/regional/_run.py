@@ -6,13 +6,11 @@ import json
 import logging
 import os
 import platform
-import sys
 import time
 from dataclasses import replace
 from pathlib import Path
 
 import numpy as np
-from affine import Affine
 
 from .. import __version__
 from ..errors import ConfigError, InputError
@@ -191,7 +189,7 @@ def _local_cluster(workers):
     return Client(cluster), cluster
 
 
-def _execute(tasks, *, workers, scheduler, client, progress):
+def _execute(tasks, *, workers, scheduler, client):
     """Run (function, job) tasks; yield each result as it finishes. workers = 0: here, one after another."""
     if client is None and scheduler is None and workers == 0:
         for function, job in tasks:
@@ -273,7 +271,7 @@ def run_regional(study, *, workers=None, scheduler=None, client=None, stream=Non
                        f"about {_gb(memory)} per task ({engine})")
         tasks = ([(solve_uniform, uniform)] if s["relative_to_uniform"] else []) + [(solve_tile, j) for j in jobs]
         records = {}
-        for result in _execute(tasks, workers=workers, scheduler=scheduler, client=client, progress=progress):
+        for result in _execute(tasks, workers=workers, scheduler=scheduler, client=client):
             records[result["tile"]] = result
             if result["tile"] == uniform.name:
                 progress.write(f"uniform reference: {result['status']}")
@@ -315,19 +313,11 @@ def run_regional(study, *, workers=None, scheduler=None, client=None, stream=Non
 
 def _picture(path, cog, *, relative, units):
     """A quick-look PNG from an even sample of the mosaic (its overviews), so its size does not matter."""
-    import rasterio
-
     from ..grid import Grid
+    from ..io.windows import read_decimated
     from ..maps import MapGeometry, quicklook
-    with rasterio.open(cog) as src:
-        step = max(1.0, max(src.height, src.width) / 1200)
-        shape = (max(1, int(src.height / step)), max(1, int(src.width / step)))
-        data = src.read(1, out_shape=shape, resampling=rasterio.enums.Resampling.average).astype(float)
-        data[data == src.nodata] = np.nan
-        sx, sy = src.width / shape[1], src.height / shape[0]
-        a = src.transform
-        t = Affine(a.a * sx, a.b, a.c, a.d, a.e * sy, a.f)
-        grid = Grid(np.nan_to_num(data, nan=1.0), np.isfinite(data), t, src.crs)
+    data, transform, crs = read_decimated(cog)
+    grid = Grid(np.nan_to_num(data, nan=1.0), np.isfinite(data), transform, crs)
     quicklook(path, data, MapGeometry.from_grid(grid), kind="log",
               title="Regional current" + (" relative to a uniform landscape" if relative else ""), units=units)
 

@@ -7,7 +7,7 @@ import json
 import os
 import resource
 import time
-from dataclasses import asdict, dataclass
+from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
@@ -16,9 +16,9 @@ from affine import Affine
 from ..analyses.regional import ring_current, shifted
 from ..errors import InputError
 from ..grid import Grid
-from ..io.windows import crs_from_text, read_tile, read_window, write_tile
+from ..io.windows import crs_from_text, read_window, write_tile
 
-__all__ = ["TileJob", "tile_flow", "solve_tile", "uniform_flow", "solve_uniform", "settings_digest"]
+__all__ = ["TileJob", "tile_flow", "solve_tile", "solve_uniform", "settings_digest"]
 
 #: Name of the tile folder inside the output folder (the output-folder rules treat it as landflow's own).
 TILE_FOLDER = ".landflow-tiles"
@@ -121,14 +121,6 @@ def tile_flow(job):
     return core, digest, solvers
 
 
-def uniform_flow(job):
-    """The same ring on a window of uniform ``buffer_value``: the reference a relative map divides by."""
-    rows, cols = job.window
-    grid = _window_grid(job, np.full((rows, cols), job.buffer_value), np.ones((rows, cols), bool))
-    core, _ = _solve(job, grid)
-    return core
-
-
 def _peak_bytes():
     return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024
 
@@ -187,12 +179,3 @@ def solve_uniform(job):
     grid = _window_grid(job, np.full((rows, cols), job.buffer_value), np.ones((rows, cols), bool))
     core, solvers = _solve(job, grid)
     return {**_write(job, core, digest, started, solvers), "status": "done"}
-
-
-def read_finished_tile(job):
-    """The stored core of a finished tile (float64, NaN outside the landscape)."""
-    return read_tile(job.tile_path)
-
-
-def job_dict(job):
-    return asdict(job)
