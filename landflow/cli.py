@@ -26,6 +26,12 @@ def _parser():
     run = commands.add_parser("run", parents=[common], help="run a study and write its outputs")
     run.add_argument("study", help="study file (TOML)")
     run.add_argument("--open", action="store_true", help="open report.html in the default web browser when the run ends")
+    run.add_argument("--workers", type=int, default=None, metavar="N",
+                     help="regional studies: local worker processes for the tiles (default: the number of CPU "
+                          "cores; 0 = this process alone)")
+    run.add_argument("--scheduler", metavar="ADDRESS",
+                     help="regional studies: solve the tiles on the dask.distributed scheduler at ADDRESS "
+                          "(e.g. tls://host:8786; the same security rules as 'landflow batch')")
     report = commands.add_parser("report", parents=[common],
                                  help="remake report.html and report.md of a finished output folder (no solving)")
     report.add_argument("folder", help="output folder of a finished run (it holds manifest.json)")
@@ -58,8 +64,36 @@ def _has_sweep(path):
     return "sweep" in read_study_file(path)
 
 
+def _is_regional(path):
+    from .regional import is_regional_study
+    return is_regional_study(path)
+
+
+def _regional(args):
+    from .regional import check_regional, run_regional
+    if args.command == "check":
+        for line in check_regional(args.study):
+            print(f"landflow: {line}")
+        return 0
+    if args.workers is not None and args.workers < 0:
+        print(f"landflow: error: --workers must be 0 or more; got {args.workers}.", file=sys.stderr)
+        return 2
+    manifest = run_regional(args.study, workers=args.workers, scheduler=args.scheduler)
+    r = manifest["regional"]
+    print(f"landflow: wrote {len(manifest['outputs'])} outputs to {manifest['folder']} in "
+          f"{manifest['timings_seconds']['total']:.1f} s ({r['tiles_solved']} tiles solved, "
+          f"{r['tiles_up_to_date']} up to date)")
+    return 0
+
+
 def _batch(args, studies, workers):
     from .study.batch import run_batch
+    regional = [s for s in studies if _is_regional(s)]
+    if regional:
+        print(f"landflow: error: {regional[0]} is a regional study ([analyses.regional_current]); run it with "
+              "'landflow run', which spreads its tiles over the workers (--workers N or --scheduler ADDRESS).",
+              file=sys.stderr)
+        return 2
     if workers is not None and workers < 0:
         print(f"landflow: error: --workers must be 0 or more; got {workers}.", file=sys.stderr)
         return 2
@@ -142,6 +176,13 @@ def _dispatch(args):
         if not args.verbose:
             logging.getLogger("landflow").setLevel(logging.WARNING)
         return _batch(args, args.studies, args.workers)
+    if args.command in ("run", "check") and _is_regional(args.study):
+        return _regional(args)
+    if args.command == "run" and (args.workers is not None or args.scheduler is not None):
+        print("landflow: error: --workers and --scheduler only apply to regional studies "
+              "([analyses.regional_current]); use 'landflow batch' to spread studies over workers.",
+              file=sys.stderr)
+        return 2
     if args.command in ("run", "check") and _has_sweep(args.study):
         from .study.sweep import expand_study
         runs = expand_study(args.study)
