@@ -17,10 +17,11 @@ __version__ = "0.1.0"
 from .analyses.absorption import (AbsorbingWalk, StrandedWalkWarning, absorbing_walk, absorption_probability,
                                   arrival_table, expected_steps, expected_visits, hitting_probability,
                                   mortality_from_resistance, most_likely_destination, release_expected_steps)
-from .analyses.current import current_density, edge_current, pair_current, pair_weights
+from .analyses.current import current_density, edge_current, edge_current_density, pair_current, pair_weights
 from .analyses.least_cost import LeastCost, least_cost, least_cost_table
 from .analyses.priority import (connectivity, corridor, corridor_ranking, link_conductance, objective_weights,
                                 restoration_gain, scenario_change)
+from .analyses.regional import ring_current
 from .analyses.resistance import PatchVoltages, effective_resistance, patch_voltages, resistance_table
 from .analyses.simulate import WalkSample, simulate_walks
 from .analyses.suitability import resistance_from_suitability
@@ -42,6 +43,31 @@ def check_study(study):
     """Validate a study and its inputs without solving; see :func:`landflow.study.run.check_study`."""
     from .study.run import check_study as _check
     return _check(study)
+
+
+def run_regional(study, **kwargs):
+    """Run a regional study (tiled flow maps without patches); see :func:`landflow.regional.run_regional`."""
+    from .regional import run_regional as _run
+    return _run(study, **kwargs)
+
+
+def check_regional(study):
+    """Validate a regional study and describe its tiling plan; see :func:`landflow.regional.check_regional`."""
+    from .regional import check_regional as _check
+    return _check(study)
+
+
+def read_network(path, **kwargs):
+    """A network from a vector line layer or a CSV edge list; see :func:`landflow.io.network.read_network`."""
+    from .io.network import read_network as _read
+    return _read(path, **kwargs)
+
+
+def read_zones(network, **kwargs):
+    """The zone of every network node, from a node column or points and polygons; see
+    :func:`landflow.io.network.read_zones`."""
+    from .io.network import read_zones as _read
+    return _read(network, **kwargs)
 
 
 def run_batch(study_files, **kwargs):
@@ -89,7 +115,8 @@ def write_geotiff(path, array, grid, **profile):
 __all__ = [
     "__version__", "Grid", "CellGraph", "build_graph", "network_graph", "landscape_mask", "Solver", "factorize",
     "PatchVoltages", "patch_voltages", "effective_resistance", "resistance_table",
-    "edge_current", "pair_current", "pair_weights", "current_density",
+    "edge_current", "pair_current", "pair_weights", "current_density", "edge_current_density", "ring_current",
+    "run_regional", "check_regional", "read_network", "read_zones",
     "AbsorbingWalk", "absorbing_walk", "hitting_probability", "absorption_probability", "most_likely_destination",
     "arrival_table", "expected_steps", "release_expected_steps", "expected_visits", "mortality_from_resistance",
     "simulate_walks", "WalkSample", "StrandedWalkWarning",

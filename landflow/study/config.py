@@ -285,6 +285,10 @@ def load_study(path):
     if "sweep" in raw:
         raise ConfigError(f"{path}: the study declares a [sweep], which expands into several runs; run it with "
                           f"'landflow run' or 'landflow batch', or from Python with landflow.study.sweep.expand_study.")
+    if isinstance(raw.get("analyses"), dict) and "regional_current" in raw["analyses"]:
+        raise ConfigError(f"{path}: the study asks for [analyses.regional_current], a regional study solved tile "
+                          "by tile; run it with 'landflow run' (or 'landflow check'), or from Python with "
+                          "landflow.run_regional (or landflow.check_regional).")
     return study_from_dict(raw, base_dir=path.resolve().parent, source=str(path), path=path)
 
 

@@ -235,3 +235,11 @@ def test_a_run_stopped_by_sigint_resumes_from_its_finished_tiles(tmp_path, tif):
 def test_batch_points_a_regional_study_to_run(capsys):
     assert main(["batch", str(DEMO / "regional.toml"), "--workers", "0"]) == 2
     assert "is a regional study" in capsys.readouterr().err
+
+
+def test_run_study_points_a_regional_study_to_its_own_runner(demo):
+    path = _study(demo, "resistance.tif")
+    with pytest.raises(ConfigError, match=r"regional.toml: the study asks for \[analyses.regional_current\], a "
+                                          r"regional study solved tile by tile; run it with 'landflow run'"):
+        lf.run_study(path)
+    assert lf.check_regional(path)[0].endswith("cells of 25 x 25 map units.")
