@@ -115,7 +115,7 @@ def render_network_map(x, y, lines, *, node_values=None, edge_values=None, kind=
                                                      " (log scale either side of a linear band around 0)"
                                                      if kind == "change" else ""), 42))
                 bar.outline.set_linewidth(0.5)
-                if kind in ("log", "change") and ticks is not None:
+                if kind in ("log", "change", "ratio") and ticks is not None:
                     bar.ax.minorticks_off()
                     bar.set_ticks(ticks, labels=tick_labels(ticks))
                 elif kind == "count" and ticks is not None:

@@ -17,6 +17,7 @@ KINDS = {
     "log": "sequential palette on a log scale (values <= 0 take the lowest colour)",
     "probability": "sequential palette over the fixed range 0 to 1",
     "change": "diverging palette centred on zero, symmetric limits",
+    "ratio": "diverging palette centred on 1 on a log scale, limits symmetric in the log (1/4 and 4 alike)",
     "classes": "qualitative palette with a discrete legend (patch ids, destinations)",
     "count": "sequential palette sampled at whole numbers with a discrete legend; 0 is left clear",
 }
@@ -71,6 +72,20 @@ def colour_scale(values, kind, *, classes=None):
         top = _round_down(bound)
         ticks = np.array([-top, -top / 10, -top / 100, 0.0, top / 100, top / 10, top])
         return cmap, SymLogNorm(linthresh=bound / 100, vmin=-bound, vmax=bound, base=10), ticks, extend
+    if kind == "ratio":
+        positive = finite[finite > 0]
+        if positive.size:
+            lo, hi = np.percentile(positive, [0.5, 99.5])
+            bound = float(max(hi, 1.0 / lo))
+            if bound > 1.0:
+                # ticks at 1 and at powers of 2 (or 10 over a wide range) either side, symmetric in the log
+                step = 2.0 if bound < 64 else 10.0
+                n = max(1, int(np.floor(np.log(bound) / np.log(step) + 1e-9)))
+                ticks = step ** np.arange(-n, n + 1, dtype=float)
+                extend = "both" if positive.min() < 1 / bound or positive.max() > bound else "neither"
+                return (matplotlib.colormaps[style.DIVERGING], LogNorm(1.0 / bound, bound, clip=False), ticks,
+                        extend)
+        kind = "magnitude"
     if kind == "log":
         positive = finite[finite > 0]
         if positive.size:
@@ -124,6 +139,11 @@ def _round_down(value):
     """The largest number with one significant digit not above ``value`` (> 0)."""
     power = 10.0 ** np.floor(np.log10(value))
     return float(np.floor(value / power * (1 + 1e-12)) * power)
+
+
+def ratio_labels(ticks):
+    """Labels of a ratio bar: 1/4, 1/2, 1, 2, 4 (fractions below 1, so both sides read alike)."""
+    return [f"1/{_format_tick(1.0 / t)}" if 0 < t < 1 else _format_tick(t) for t in np.asarray(ticks, dtype=float)]
 
 
 def tick_labels(ticks):
@@ -264,9 +284,9 @@ def render_quicklook(array, geometry, *, kind="magnitude", title="", units="", p
             bar = fig.colorbar(image, ax=ax, shrink=0.9, extend=extend, ticks=ticks, aspect=30, pad=0.02)
             bar.set_label(textwrap.fill(label, 42))
             bar.outline.set_linewidth(0.5)
-            if kind in ("log", "change") and ticks is not None:
+            if kind in ("log", "change", "ratio") and ticks is not None:
                 bar.ax.minorticks_off()
-                bar.set_ticks(ticks, labels=tick_labels(ticks))
+                bar.set_ticks(ticks, labels=ratio_labels(ticks) if kind == "ratio" else tick_labels(ticks))
             elif kind == "count":
                 bar.set_ticks(ticks, labels=[str(int(t)) for t in ticks])
                 bar.ax.minorticks_off()

@@ -18,7 +18,9 @@ Palettes are chosen by the kind of quantity:
   sides, marked colour-blind safe by its authors (Harrower & Brewer 2003,
   "ColorBrewer.org: an online tool for selecting colour schemes for maps",
   Cartographic J. 40: 27-37, doi:10.1179/000870403235002042), always centred on
-  zero so that white means "no change";
+  zero so that white means "no change"; ratios to a reference (the regional
+  current against a uniform landscape) take the same palette on a log scale,
+  centred on 1;
 * classes (patch ids, destinations): the nine "muted" colours of Tol (2021,
   "Colour schemes", SRON technical note SRON/EPS/TN/09-002), distinguishable
   by people with the common colour-vision deficiencies and never black (which

@@ -318,7 +318,7 @@ def _picture(path, cog, *, relative, units):
     from ..maps import MapGeometry, quicklook
     data, transform, crs = read_decimated(cog)
     grid = Grid(np.nan_to_num(data, nan=1.0), np.isfinite(data), transform, crs)
-    quicklook(path, data, MapGeometry.from_grid(grid), kind="log",
+    quicklook(path, data, MapGeometry.from_grid(grid), kind="ratio" if relative else "log",
               title="Regional current" + (" relative to a uniform landscape" if relative else ""), units=units)
 
 

@@ -12,7 +12,7 @@ from landflow.grid import Grid
 from landflow.maps import (MapGeometry, block_reduce, colour_scale, new_map, patch_anchors, place_labels,
                            render_quicklook, scale_bar_length, style)
 from landflow.maps._frame import draw_patches, draw_scale_bar
-from landflow.maps._quicklook import tick_labels
+from landflow.maps._quicklook import ratio_labels, tick_labels
 from landflow.maps.charts import cluster_order
 
 
@@ -242,3 +242,12 @@ def test_neighbouring_classes_never_share_a_colour():
             for dr, dc in ((0, 1), (1, 0)):
                 if r + dr < 3 and c + dc < 4:
                     assert colours[v] != colours[v + 4 * dr + dc], (v, v + 4 * dr + dc)
+
+
+def test_ratio_scale_is_centred_on_one_and_symmetric_in_the_log():
+    values = np.geomspace(0.3, 2.5, 400)                 # lopsided: more room below 1 than above
+    cmap, norm, ticks, _ = colour_scale(values, "ratio")
+    assert float(norm(1.0)) == pytest.approx(0.5, abs=1e-12)
+    assert norm.vmin * norm.vmax == pytest.approx(1.0)
+    assert 1.0 in ticks and np.allclose(np.sort(ticks), np.sort(1.0 / ticks))
+    assert ratio_labels([0.25, 0.5, 1.0, 2.0]) == ["1/4", "1/2", "1", "2"]
