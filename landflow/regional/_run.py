@@ -191,15 +191,22 @@ def _local_cluster(workers):
 
 def _execute(tasks, *, workers, scheduler, client):
     """Run (function, job) tasks; yield each result as it finishes. workers = 0: here, one after another."""
-    if client is None and scheduler is None and workers == 0:
+    here = client is None and scheduler is None and workers == 0
+    if not here:
+        try:
+            import distributed
+        except ImportError:
+            if client is not None or scheduler is not None or workers is not None:
+                raise ConfigError("regional runs on several processes need dask.distributed; install it with "
+                                  "pip install 'landflow[dask]', or run on this process alone (--workers 0).") from None
+            # the default (local worker processes) without dask installed: this process, one tile after another
+            log.warning("dask.distributed is not installed, so the tiles are solved in this process one after "
+                        "another; pip install 'landflow[dask]' to solve them on local worker processes")
+            here = True
+    if here:
         for function, job in tasks:
             yield function(job)
         return
-    try:
-        import distributed
-    except ImportError:
-        raise ConfigError("regional runs on several processes need dask.distributed; install it with "
-                          "pip install 'landflow[dask]', or run on this process alone (--workers 0).") from None
     cluster = None
     own = client is None
     if own and scheduler is not None:

@@ -243,3 +243,15 @@ def test_run_study_points_a_regional_study_to_its_own_runner(demo):
                                           r"regional study solved tile by tile; run it with 'landflow run'"):
         lf.run_study(path)
     assert lf.check_regional(path)[0].endswith("cells of 25 x 25 map units.")
+
+
+def test_without_dask_the_default_run_solves_here_and_says_so(demo, monkeypatch, caplog):
+    import sys
+    monkeypatch.setitem(sys.modules, "distributed", None)        # as on a plain install: import fails
+    path = _study(demo, "resistance.tif")
+    with caplog.at_level("WARNING", logger="landflow"):
+        manifest = run_regional(path)
+    assert "dask.distributed is not installed, so the tiles are solved in this process" in caplog.text
+    assert manifest["regional"]["tiles_solved"] == manifest["regional"]["tiles"] == 6     # 2 x 3 tiles of 128
+    with pytest.raises(ConfigError, match=r"need dask.distributed; install it with pip install 'landflow\[dask\]'"):
+        run_regional(path, workers=2)
