@@ -27,6 +27,7 @@ log = logging.getLogger("landflow")
 OUTPUT = f"{NAME}.tif"
 PICTURE = f"{NAME}.png"
 PROGRESS_LOG = "progress.log"
+REPORT = "report.md"
 
 
 def _study(study):
@@ -309,13 +310,46 @@ def run_regional(study, *, workers=None, scheduler=None, client=None, stream=Non
         (out.staging / PROGRESS_LOG).write_bytes((tiles_dir / PROGRESS_LOG).read_bytes())
         outputs.append({"file": PROGRESS_LOG, "analysis": NAME, "description": "progress of the run's tiles",
                         "units": ""})
+        timings = {"tiles": round(solved, 3), "mosaic": round(mosaic_seconds, 3)}
+        _write_report(out.staging / REPORT, study, info, plan, extra, records, uniform.name, outputs,
+                      {**timings, "total": round(time.perf_counter() - started, 3)})
+        outputs.append({"file": REPORT, "analysis": NAME, "description": "a plain account of the run, with the "
+                        "caution that goes with its results", "units": ""})
         manifest = _manifest(study, info, plan, extra, shared, records, uniform.name, outputs, out,
-                             {"tiles": round(solved, 3), "mosaic": round(mosaic_seconds, 3),
-                              "total": round(time.perf_counter() - started, 3)})
+                             {**timings, "total": round(time.perf_counter() - started, 3)})
         (out.staging / "manifest.json").write_text(json.dumps(manifest, indent=1), encoding="utf-8")
         out.commit([o["file"] for o in outputs] + ["manifest.json"])
     manifest["folder"] = str(out.folder)
     return manifest
+
+
+def _write_report(path, study, info, plan, extra, records, uniform_name, outputs, timings):
+    """report.md of a regional run: what was solved, how, what it wrote, and the caution."""
+    from ..study.run import CAUTION
+    s = study.analyses[NAME]
+    tiles = [r for name, r in records.items() if name != uniform_name]
+    done = sum(r["status"] == "done" for r in tiles)
+    width, height = info.cell_size
+    lines = [f"# landflow regional run: {study.path}", "", CAUTION, "", "## Landscape", "",
+             f"- {info.rows:,} x {info.cols:,} cells of {width:g} x {height:g} map units, CRS "
+             f"{info.crs.to_string() if info.crs else 'none'} "
+             f"({os.path.relpath(extra['path'], study.path.parent if study.path else Path.cwd())})",
+             "", "## Tiles", "",
+             f"- {len(plan.tiles)} tile(s) of at most {plan.tile} x {plan.tile} cells"
+             + (f", each solved with a margin of {plan.margin[0]} x {plan.margin[1]} cells of landscape"
+                if plan.tiled else " (the landscape fits in one tile: solved whole, without margin)"),
+             f"- ring buffer of {plan.buffer[0]} x {plan.buffer[1]} cells of value {extra['buffer_value']:g} "
+             f"({extra['buffer_value_from']}), {s['ring_nodes']} ring nodes, seed {s['seed']}",
+             f"- {done} tile(s) solved in this run, {len(tiles) - done} up to date from an earlier run",
+             "- " + ("current relative to the same ring on a uniform landscape (1 = as on uniform)"
+                     if s["relative_to_uniform"] else "summed current in A for unit currents between ring nodes"),
+             "", "## Outputs", "", "| file | what it holds | units |", "|---|---|---|"]
+    lines += [f"| {o['file']} | {o['description']} | {o['units']} |" for o in outputs]
+    lines += ["", f"Time: {timings['tiles']:.1f} s for the tiles, {timings['mosaic']:.1f} s for the mosaic, "
+              f"{timings['total']:.1f} s in all. manifest.json holds the settings, input hash and versions needed "
+              "to rerun this study; docs/regional.md describes the method and how far tiled maps follow untiled "
+              "ones.", ""]
+    path.write_text("\n".join(lines), encoding="utf-8")
 
 
 def _picture(path, cog, *, relative, units):

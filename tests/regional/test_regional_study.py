@@ -252,6 +252,9 @@ def test_without_dask_the_default_run_solves_here_and_says_so(demo, monkeypatch,
     with caplog.at_level("WARNING", logger="landflow"):
         manifest = run_regional(path)
     assert "dask.distributed is not installed, so the tiles are solved in this process" in caplog.text
+    # every run's report carries the caution that goes with its results
+    report = (Path(manifest["folder"]) / "report.md").read_text()
+    assert "decision support alongside field evidence" in report and "6 tile(s) solved in this run" in report
     assert manifest["regional"]["tiles_solved"] == manifest["regional"]["tiles"] == 6     # 2 x 3 tiles of 128
     with pytest.raises(ConfigError, match=r"need dask.distributed; install it with pip install 'landflow\[dask\]'"):
         run_regional(path, workers=2)
