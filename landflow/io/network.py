@@ -19,6 +19,7 @@ import numpy as np
 import pandas as pd
 
 from ..errors import InputError
+from .sites import Patches
 from .vectors import _where, patch_codes, read_features
 
 __all__ = ["Network", "read_network", "read_zones", "CSV_SUFFIXES", "ONE_WAY_TRUE", "ONE_WAY_FALSE"]
@@ -470,28 +471,8 @@ def map_crs(crs):
 
 
 # -- zones ---------------------------------------------------------------------------------------------------
-@dataclass(eq=False)
-class Zones:
-    """Zone label of every network node (0 = none), with names of text ids and weights, as patches have."""
-
-    labels: np.ndarray
-    weight: dict | None = None
-    source: str = "zones"
-    names: dict | None = None
-
-    @property
-    def ids(self):
-        ids = np.unique(self.labels)
-        return ids[ids != 0]
-
-    def name_of(self, code):
-        if self.names is None:
-            return int(code)
-        return self.names.get(int(code), int(code))
-
-    @property
-    def id_table(self):
-        return {int(c): self.name_of(c) for c in self.ids}
+# A network's zones are its patches: a Patches record whose labels give the zone of every node (0 = none), on
+# the network's 1 x N pseudo-grid, with the names of text ids and the zones' weights.
 
 
 def read_zones(network, *, column=None, features=None, layer=None, id_column="id", snap_distance=None,
@@ -516,7 +497,8 @@ def read_zones(network, *, column=None, features=None, layer=None, id_column="id
 
     Returns
     -------
-    Zones, with ``labels`` of shape (1, N) as patch labels on the network's 1 x N pseudo-grid.
+    Patches, with ``labels`` of shape (1, N): the zone of each node as patch labels on the network's 1 x N
+    pseudo-grid.
 
     Raises
     ------
@@ -542,7 +524,7 @@ def read_zones(network, *, column=None, features=None, layer=None, id_column="id
                                    id_column=column)
         labels = np.zeros(n, dtype=np.int64)
         labels[member] = codes
-        return Zones(labels.reshape(1, n), None, f"node table column {column!r}", names)
+        return Patches(labels.reshape(1, n), None, f"node table column {column!r}", names)
     import shapely
     frame = read_features(features, layer=layer, what="zone features")
     where = _where(features, layer)
@@ -619,4 +601,4 @@ def read_zones(network, *, column=None, features=None, layer=None, id_column="id
             raise InputError(f"{where}: the features of zone {shown(code)!r} give different {weight_column!r}; "
                              "features of one zone must repeat the same weight.")
         weight = {int(k): float(v) for k, v in per.first().items()}
-    return Zones(claim.reshape(1, n), weight, where, names)
+    return Patches(claim.reshape(1, n), weight, where, names)
