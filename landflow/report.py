@@ -340,7 +340,8 @@ def build_html(folder, manifest):
                  "file": o["file"], "units": o["units"]}
                 for o in outputs if o["file"].endswith(".png") and (folder / o["file"]).is_file()]
         sections.append({"id": name, "title": words(_ANALYSIS_TITLES.get(name, name.replace("_", " ").capitalize())),
-                         "numbers": [(k, summary[k]) for k in by_analysis.get(name, []) if k in summary]
+                         "numbers": [(words(k), words(str(summary[k]))) for k in by_analysis.get(name, [])
+                                     if k in summary]
                          + derived.get(name, []),
                          "maps": maps, "charts": charts_by.get(name, []),
                          "files": [{**o, "description": words(o["description"])} for o in outputs
@@ -372,7 +373,7 @@ def build_html(folder, manifest):
         inputs=manifest.get("inputs", []), versions=manifest.get("versions", {}),
         settings_text=json.dumps(settings, indent=2, default=str), solvers=manifest.get("solvers", []),
         sections=sections, headline=headline,
-        key_numbers=list(summary.items()),
+        key_numbers=[(words(k), words(str(v))) for k, v in summary.items()],
         pair_header=header, pair_rows=rows, ranked=ranked, warnings=manifest.get("warnings", []),
         timeline=charts.timeline(stages) if stages else None,
         outputs=[{**o, "description": words(o["description"])} for o in manifest["outputs"]],

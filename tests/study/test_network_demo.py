@@ -51,4 +51,5 @@ def test_demo_study_runs_from_the_command_line(tmp_path):
     assert (out / "current_density.png").is_file() and "Millford" in page
     # the page speaks of zones and the network, not of patches and a landscape
     assert "Effective resistance between zones" in page and "between patches" not in page
-    assert "What-if: the changed network" in page
+    assert "What-if: the changed network" in page and "death probability off zones" in page
+    assert "zones Kestrel Bridge-Millford" in page or "zones Millford-Kestrel Bridge" in page
