@@ -150,7 +150,9 @@ def _example_value(name, key):
 
 
 def _example(name, step):
-    if getattr(step, "NETWORK_ONLY", None):
+    if getattr(step, "REGIONAL", None):
+        study = ["[landscape]", 'resistance = "landcover_resistance.tif"']
+    elif getattr(step, "NETWORK_ONLY", None):
         study = ["[network]", 'edges = "roads.gpkg"', 'resistance_column = "minutes"', "", "[zones]",
                  'features = "towns.gpkg"', "snap_distance = 50.0"]
     else:
@@ -190,6 +192,15 @@ def render():
     for name, step in ANALYSES.items():
         out += [f"### [analyses.{name}]", "", step.SETTINGS.doc, ""] + _table(step.SETTINGS, f"analyses.{name}")
         out += ["Example:", ""] + _example(name, step)
+    from types import SimpleNamespace
+
+    from ..regional import NAME as REGIONAL, SETTINGS as REGIONAL_SETTINGS
+    out += [f"### [analyses.{REGIONAL}]", "", REGIONAL_SETTINGS.doc, "",
+            "A regional study holds `[landscape]`, this table, `[solver]` and `[output]`, and no patches; it runs",
+            "tile by tile with `landflow run` (local worker processes, or `--scheduler ADDRESS`), and",
+            "`landflow check` prints its tiling plan. See docs/regional.md.", ""]
+    out += _table(REGIONAL_SETTINGS, f"analyses.{REGIONAL}")
+    out += ["Example:", ""] + _example(REGIONAL, SimpleNamespace(SETTINGS=REGIONAL_SETTINGS, REGIONAL=True))
     out += [_SWEEP]
     return "\n".join(out).rstrip("\n") + "\n"
 

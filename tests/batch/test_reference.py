@@ -46,3 +46,14 @@ def test_every_analysis_example_validates(tmp_path):
             if isinstance(value, str) and "." in value:
                 (tmp_path / value).touch()
         validate_section(table, step.SETTINGS, f"analyses.{name}", tmp_path, "example")
+
+
+def test_regional_example_validates(tmp_path):
+    import re
+    import tomllib
+
+    from landflow.regional import NAME, SETTINGS
+    from landflow.study.schema import validate_section
+
+    block = re.search(rf"```toml\n(\[landscape\][^`]*?\n\[analyses\.{NAME}\]\n[^`]*?)```", render()).group(1)
+    validate_section(tomllib.loads(block)["analyses"][NAME], SETTINGS, f"analyses.{NAME}", tmp_path, "example")
