@@ -20,6 +20,7 @@ import pandas as pd
 
 from ..errors import InputError
 from .sites import Patches
+from .tables import read_csv_text
 from .vectors import _where, patch_codes, read_features
 
 __all__ = ["Network", "read_network", "read_zones", "CSV_SUFFIXES", "ONE_WAY_TRUE", "ONE_WAY_FALSE"]
@@ -217,18 +218,6 @@ def _numeric_column(frame, column, network):
     return pd.to_numeric(frame[column], errors="coerce").to_numpy(dtype=float)
 
 
-def _read_csv(path, what):
-    try:
-        table = pd.read_csv(path, skipinitialspace=True, dtype=str, keep_default_na=False)
-    except FileNotFoundError:
-        raise InputError(f"the {what} '{path}' does not exist. Check the path (relative paths in a study are "
-                         "relative to the study file).") from None
-    except (pd.errors.ParserError, pd.errors.EmptyDataError, UnicodeDecodeError) as exc:
-        raise InputError(f"{path}: cannot read the {what} as CSV ({str(exc).strip()}).") from None
-    table.columns = [str(c).strip() for c in table.columns]
-    return table.apply(lambda col: col.str.strip())
-
-
 def _require(table, columns, path, what, hint):
     missing = [c for c in columns if c not in table.columns]
     if missing:
@@ -237,7 +226,7 @@ def _require(table, columns, path, what, hint):
 
 
 def _read_edge_list(path, nodes, from_column, to_column, crs):
-    edges = _read_csv(path, "edge list")
+    edges = read_csv_text(path, "edge list")
     _require(edges, [from_column, to_column], path, "edge list",
              "Name the end-node columns with 'from_column' and 'to_column'.")
     ends = pd.concat([edges[from_column], edges[to_column]], ignore_index=True)
@@ -248,7 +237,7 @@ def _read_edge_list(path, nodes, from_column, to_column, crs):
                          f"'{to_column}' on every line.")
     node_table = x = y = None
     if nodes is not None:
-        node_table = _read_csv(nodes, "node table")
+        node_table = read_csv_text(nodes, "node table")
         _require(node_table, ["id"], nodes, "node table", "The node table needs an 'id' column with the ids the "
                  "edge list uses (and x, y for coordinates).")
         ids = node_table["id"]

@@ -9,6 +9,7 @@ import pandas as pd
 
 from ..errors import InputError
 from .rasters import read_aligned
+from .tables import read_csv_text
 
 __all__ = ["Patches", "read_patch_raster", "read_patch_points", "patch_weight_from_raster"]
 
@@ -87,21 +88,14 @@ def read_patch_points(path, grid, *, weight_column=None, crs=None):
     With ``weight_column``, that column gives each patch's weight (a
     finite number >= 0, the same on every point of one id).
     """
-    try:
-        table = pd.read_csv(path, skipinitialspace=True, dtype=str, keep_default_na=False)
-    except FileNotFoundError:
-        raise InputError(f"patch points file '{path}' does not exist. Check the path "
-                         "(relative paths in a study are relative to the study file).") from None
-    except (pd.errors.ParserError, pd.errors.EmptyDataError, UnicodeDecodeError) as exc:
-        raise InputError(f"{path}: cannot read it as CSV ({exc}).") from None
-    table.columns = [str(c).strip() for c in table.columns]     # "x, y, id" as well as "x,y,id"
+    table = read_csv_text(path, "patch points file")
     needed = ["x", "y", "id"] + ([weight_column] if weight_column else [])
     missing = [c for c in needed if c not in table.columns]
     if missing:
         raise InputError(f"{path}: missing column(s) {', '.join(missing)}; found {', '.join(map(str, table.columns))}. "
                          "The points table needs x, y (map coordinates in the raster's CRS) and id (a whole number > 0).")
     for col in needed:
-        text = table[col].str.strip()
+        text = table[col]
         values = pd.to_numeric(text, errors="coerce")
         if values.isna().any():
             line = int(values.isna().to_numpy().argmax()) + 2
