@@ -21,7 +21,7 @@ import pandas as pd
 from ..errors import InputError
 from .sites import Patches
 from .tables import read_csv_text
-from .vectors import _where, patch_codes, read_features
+from .vectors import _where, feature_weights, patch_codes, read_features
 
 __all__ = ["Network", "read_network", "read_zones", "CSV_SUFFIXES", "ONE_WAY_TRUE", "ONE_WAY_FALSE"]
 
@@ -578,16 +578,6 @@ def read_zones(network, *, column=None, features=None, layer=None, id_column="id
     if weight_column is not None:
         if weight_column not in frame.columns:
             raise InputError(f"{where}: no column {weight_column!r} ([zones] weight_column).")
-        values = pd.to_numeric(frame[weight_column], errors="coerce").to_numpy(dtype=float)
-        bad = ~np.isfinite(values) | (values < 0)
-        if bad.any():
-            raise InputError(f"{where}, feature {frame.index[bad][0]}: {weight_column!r} = "
-                             f"{_plain(frame[weight_column].iloc[int(np.argmax(bad))])!r}; a zone weight must be a "
-                             "finite number >= 0.")
-        per = pd.Series(values).groupby(codes)
-        if (per.nunique() > 1).any():
-            code = int(per.nunique().index[(per.nunique() > 1).to_numpy()][0])
-            raise InputError(f"{where}: the features of zone {shown(code)!r} give different {weight_column!r}; "
-                             "features of one zone must repeat the same weight.")
-        weight = {int(k): float(v) for k, v in per.first().items()}
+        weight = feature_weights(frame, weight_column, codes, where=where, id_column=id_column, shown=shown,
+                                 kind="zone")
     return Patches(claim.reshape(1, n), weight, where, names)

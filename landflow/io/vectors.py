@@ -273,21 +273,30 @@ def patches_from_features(frame, grid, *, id_column="id", weight_column=None, al
         if not grid.mask[labels == code].any():
             raise InputError(f"{where}: {_feature(fid, shown(int(code)))} lies wholly on nodata cells of "
                              f"{grid.source}. Move it onto the landscape or fix the raster.")
-    weight = None
-    if weight_column:
-        values = pd.to_numeric(frame[weight_column], errors="coerce").to_numpy(dtype=float)
-        bad = ~np.isfinite(values) | (values < 0)
-        if bad.any():
-            fid = frame.index[bad][0]
-            raise InputError(f"{where}: {_feature(fid, frame[id_column][fid])} has {weight_column!r} = "
-                             f"{_plain(frame[weight_column][fid])!r}; a patch weight must be a finite number >= 0.")
-        per_id = pd.Series(values).groupby(codes)
-        if (per_id.nunique() > 1).any():
-            code = int(per_id.nunique().index[(per_id.nunique() > 1).to_numpy()][0])
-            raise InputError(f"{where}: the features of id {shown(code)!r} give different {weight_column!r}; "
-                             "features of one id must repeat the same weight.")
-        weight = {int(k): float(v) for k, v in per_id.first().items()}
+    weight = feature_weights(frame, weight_column, codes, where=where, id_column=id_column, shown=shown) \
+        if weight_column else None
     return Patches(labels, weight, where, names=names)
+
+
+def feature_weights(frame, weight_column, codes, *, where, id_column, shown, kind="patch"):
+    """``{code: weight}`` from a weight column of features (patches, or a network's zones).
+
+    Each weight must be a finite number >= 0, and the features of one id must repeat the same
+    weight; ``codes`` are the features' numeric codes (:func:`patch_codes`), ``shown`` turns a code
+    back into the id a user gave, and ``kind`` names what is weighed in messages.
+    """
+    values = pd.to_numeric(frame[weight_column], errors="coerce").to_numpy(dtype=float)
+    bad = ~np.isfinite(values) | (values < 0)
+    if bad.any():
+        fid = frame.index[bad][0]
+        raise InputError(f"{where}: {_feature(fid, frame[id_column][fid])} has {weight_column!r} = "
+                         f"{_plain(frame[weight_column][fid])!r}; a {kind} weight must be a finite number >= 0.")
+    per_id = pd.Series(values).groupby(codes)
+    if (per_id.nunique() > 1).any():
+        code = int(per_id.nunique().index[(per_id.nunique() > 1).to_numpy()][0])
+        raise InputError(f"{where}: the features of {kind} {shown(code)!r} give different {weight_column!r}; "
+                         f"features of one {kind} must repeat the same weight.")
+    return {int(k): float(v) for k, v in per_id.first().items()}
 
 
 def read_patch_features(path, grid, *, layer=None, id_column="id", weight_column=None, all_touched=False):

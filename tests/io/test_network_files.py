@@ -398,3 +398,26 @@ def test_text_ids_for_patches_with_numeric_ids_are_refused(tmp_path):
     with pytest.raises(ConfigError, match=r"'analyses.walk_simulation.release_patches' names 'a', but the patches "
                                           r"of .* have numeric ids; name them by number"):
         lf.run_study(path)
+
+
+def test_zone_weights_must_be_finite_non_negative_and_one_per_zone(tmp_path):
+    network = read_network(lines(tmp_path, [[(0, 0), (100, 0)], [(100, 0), (200, 0)]], cost=[1.0, 1.0]),
+                           resistance_column="cost")
+
+    def towns(people):
+        frame = gpd.GeoDataFrame({"id": ["A", "B", "B"], "people": people,
+                                  "geometry": [shapely.Point(0, 0), shapely.Point(200, 0), shapely.Point(201, 0)]},
+                                 crs=CRS)
+        frame.to_file(tmp_path / "towns.gpkg", engine="pyogrio")
+        return tmp_path / "towns.gpkg"
+
+    with pytest.raises(InputError, match=r"towns.gpkg: feature 1 \(id 'A'\) has 'people' = -3.0; a zone "
+                                         r"weight must be a finite number >= 0"):
+        read_zones(network, features=towns([-3.0, 5.0, 5.0]), snap_distance=5.0, weight_column="people")
+    with pytest.raises(InputError, match=r"the features of zone 'B' give different 'people'; features of one zone "
+                                         r"must repeat the same weight"):
+        read_zones(network, features=towns([1.0, 5.0, 6.0]), snap_distance=5.0, weight_column="people")
+    with pytest.raises(InputError, match=r"no column 'adults' \(\[zones\] weight_column\)"):
+        read_zones(network, features=towns([1.0, 5.0, 5.0]), snap_distance=5.0, weight_column="adults")
+    zones = read_zones(network, features=towns([1.0, 5.0, 5.0]), snap_distance=5.0, weight_column="people")
+    assert zones.weight == {1: 1.0, 2: 5.0}
