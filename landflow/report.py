@@ -18,7 +18,7 @@ import numpy as np
 from .errors import InputError
 from .io._atomic import atomic_path, sha256_of
 
-__all__ = ["write_report", "write_reports", "build_html", "rebuild_reports", "REPORT_FILES"]
+__all__ = ["write_report", "write_reports", "build_html", "rebuild_reports", "network_words", "REPORT_FILES"]
 
 REPORT_FILES = ("report.md", "report.html")
 
@@ -139,7 +139,7 @@ _NETWORK_WORDS = {"patch": "zone", "patches": "zones", "Patch": "Zone", "Patches
                   "landscape": "network"}
 
 
-def _network_words(text):
+def network_words(text):
     """A title or caption in a network study's words: zones for patches, the network for the landscape."""
     return re.sub(r"\b(" + "|".join(_NETWORK_WORDS) + r")\b", lambda m: _NETWORK_WORDS[m.group(1)], text)
 
@@ -325,7 +325,7 @@ def build_html(folder, manifest):
     from .maps import charts, style
     folder = Path(folder)
     land = manifest["landscape"]
-    words = _network_words if land.get("network") else str
+    words = network_words if land.get("network") else str
     settings = manifest.get("settings", {})
     names = list(settings.get("analyses", {}).keys())
     charts_by = _charts(folder, manifest)

@@ -25,7 +25,7 @@ def _geometry(x, y, lines, crs):
 
 
 def render_network_map(x, y, lines, *, node_values=None, edge_values=None, kind="magnitude", title="", units="",
-                       zones=None, zone_names=None, crs=None, class_names=None, title_words=None,
+                       zones=None, zone_names=None, crs=None, class_names=None,
                        marked_lines=None, mark_label="changed"):
     """A figure of a network in map coordinates.
 
@@ -51,8 +51,6 @@ def render_network_map(x, y, lines, *, node_values=None, edge_values=None, kind=
     from matplotlib.cm import ScalarMappable
 
     geometry = _geometry(x, y, list(lines) + list(marked_lines or []), crs)
-    for old, new in (title_words or {}).items():
-        title, units = title.replace(old, new), units.replace(old, new)
     with matplotlib.rc_context(style.matplotlib_style()):
         fig, ax = new_map(geometry, title=title)
         handles = []

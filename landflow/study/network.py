@@ -18,6 +18,7 @@ import pandas as pd
 from ..errors import ConfigError, InputError
 from ..graph import CellEdges
 from ..io.network import map_crs, read_network, read_zones
+from ..report import network_words
 from .run import RunContext
 
 __all__ = ["NetworkContext", "write_network_outputs", "NETWORK_FILES"]
@@ -90,15 +91,13 @@ class NetworkContext(RunContext):
 
     def changed_edges(self, changed):
         """Indices of the edges of ``changed`` (a Network) that the study's network does not have as they are."""
-        def key(net):
+        def keys(net):
+            """(low node, high node, conductance to 12 decimals) of every edge, in edge order."""
             lo = np.minimum(net.source, net.target)
             hi = np.maximum(net.source, net.target)
-            return set(zip(lo.tolist(), hi.tolist(), np.round(net.conductance, 12).tolist()))
-        before = key(self.network)
-        lo = np.minimum(changed.source, changed.target)
-        hi = np.maximum(changed.source, changed.target)
-        return [e for e, k in enumerate(zip(lo.tolist(), hi.tolist(), np.round(changed.conductance, 12).tolist()))
-                if k not in before], changed
+            return list(zip(lo.tolist(), hi.tolist(), np.round(net.conductance, 12).tolist()))
+        before = set(keys(self.network))
+        return [e for e, k in enumerate(keys(changed)) if k not in before], changed
 
     def where(self, row, col):
         """How messages name a network node (the pseudo-grid's cell (0, col))."""
@@ -253,10 +252,11 @@ class NetworkContext(RunContext):
             indices, other = marks
             marked = [_lines(other)[e] for e in indices]
         network_map(path, net.x, net.y, _lines(net), node_values=None if edge else np.asarray(array).ravel(),
-                    edge_values=edge["values"] if edge else None, kind=kind, title=title, units=units,
+                    edge_values=edge["values"] if edge else None, kind=kind, title=network_words(title),
+                    units=network_words(units),
                     marked_lines=marked, mark_label=mark_label,
                     zones=self.patches.labels.ravel(), zone_names=self.patches.id_table, crs=map_crs(net.crs),
-                    class_names=class_names, title_words={"patches": "zones", "patch": "zone"})
+                    class_names=class_names)
 
 
 def _lines(network):
