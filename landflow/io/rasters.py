@@ -66,14 +66,8 @@ def read_grid(path, *, what="raster", integer=False, plain_grid_ok=False):
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", NotGeoreferencedWarning)
             with rasterio.open(path) as src:
-                if src.count != 1:
-                    raise InputError(f"{path}: the {what} has {src.count} bands; landflow reads single-band "
-                                     "rasters. Extract the band you mean (gdal_translate -b N).")
+                check_header(src, path, what, plain_grid_ok=plain_grid_ok)
                 nodata, transform, crs = src.nodata, src.transform, src.crs
-                if transform.is_identity and crs is None and not plain_grid_ok:
-                    raise InputError(f"{path}: the {what} has no georeferencing (no transform and no CRS; "
-                                     f"a {src.driver} file). Give a georeferenced raster such as a GeoTIFF, or "
-                                     "set 'landscape.plain_grid_ok = true' to read it as a grid of 1 x 1 cells.")
                 try:
                     raw = src.read(1, masked=False)
                 except RasterioIOError as exc:       # opened, but its data cannot be decoded
@@ -103,14 +97,31 @@ def read_grid(path, *, what="raster", integer=False, plain_grid_ok=False):
         mask = np.ones(values.shape, bool) if nodata is None or not float(nodata).is_integer() \
             else values != int(nodata)
         return Grid(values, mask, transform, crs, source=str(path), nodata=nodata)
+    values, mask = valid_values(raw, nodata)
+    return Grid(values, mask, transform, crs, source=str(path), nodata=nodata)
+
+
+def check_header(src, path, what, *, plain_grid_ok=False):
+    """Refuse an open raster landflow cannot read as one landscape band: several bands, or (unless
+    ``plain_grid_ok``) no georeferencing at all."""
+    if src.count != 1:
+        raise InputError(f"{path}: the {what} has {src.count} bands; landflow reads single-band "
+                         "rasters. Extract the band you mean (gdal_translate -b N).")
+    if src.transform.is_identity and src.crs is None and not plain_grid_ok:
+        raise InputError(f"{path}: the {what} has no georeferencing (no transform and no CRS; "
+                         f"a {src.driver} file). Give a georeferenced raster such as a GeoTIFF, or "
+                         "set 'landscape.plain_grid_ok = true' to read it as a grid of 1 x 1 cells.")
+
+
+def valid_values(raw, nodata):
+    """Band values as float64 and the mask of valid cells: not the nodata value, or finite where the file
+    declares no nodata value."""
     values = raw.astype(np.float64)
     if nodata is None:
-        mask = np.isfinite(values)
-    elif np.isnan(nodata):
-        mask = ~np.isnan(values)
-    else:
-        mask = values != nodata
-    return Grid(values, mask, transform, crs, source=str(path), nodata=nodata)
+        return values, np.isfinite(values)
+    if np.isnan(nodata):
+        return values, ~np.isnan(values)
+    return values, values != nodata
 
 
 #: How another raster may be brought onto the landscape's grid: rasterio.warp resampling of each name.

@@ -14,7 +14,7 @@ from rasterio.windows import Window
 
 from ..errors import InputError
 from ._atomic import atomic_path
-from .rasters import COG_PROFILE, NODATA
+from .rasters import COG_PROFILE, NODATA, check_header, valid_values
 
 __all__ = ["RasterInfo", "raster_info", "read_window", "sample_values", "read_decimated", "write_tile",
            "read_tile", "Mosaic", "crs_from_text"]
@@ -58,26 +58,12 @@ def _open(path, what):
 def raster_info(path, *, what="raster", plain_grid_ok=False):
     """The shape, transform, CRS and nodata of band 1 of ``path`` (no values are read)."""
     with _open(path, what) as src:
-        if src.count != 1:
-            raise InputError(f"{path}: the {what} has {src.count} bands; landflow reads single-band rasters. "
-                             "Extract the band you mean (gdal_translate -b N).")
-        if src.transform.is_identity and src.crs is None and not plain_grid_ok:
-            raise InputError(f"{path}: the {what} has no georeferencing (no transform and no CRS). Give a "
-                             "georeferenced raster such as a GeoTIFF, or set 'landscape.plain_grid_ok = true'.")
+        check_header(src, path, what, plain_grid_ok=plain_grid_ok)
         t = src.transform
         if t.b != 0 or t.d != 0:
             raise InputError(f"{path}: the {what} is rotated or sheared; warp it to a north-up grid first "
                              "(for example with gdalwarp).")
         return RasterInfo(str(path), src.height, src.width, t, src.crs, src.nodata)
-
-
-def _valid(raw, nodata):
-    values = raw.astype(np.float64)
-    if nodata is None:
-        return values, np.isfinite(values)
-    if np.isnan(nodata):
-        return values, ~np.isnan(values)
-    return values, values != nodata
 
 
 def read_window(path, row0, col0, rows, cols, *, what="raster"):
@@ -94,7 +80,7 @@ def read_window(path, row0, col0, rows, cols, *, what="raster"):
             raise InputError(f"cannot read rows {row0}-{row0 + rows - 1}, columns {col0}-{col0 + cols - 1} of "
                              f"the {what} '{path}': the file is damaged or truncated (GDAL: "
                              f"{str(exc).rstrip('. ')}). Export it again.") from None
-        return _valid(raw, src.nodata)
+        return valid_values(raw, src.nodata)
 
 
 def sample_values(path, *, max_cells=4_000_000, what="raster"):
@@ -114,7 +100,7 @@ def sample_values(path, *, max_cells=4_000_000, what="raster"):
         shape = (max(1, int(src.height / step)), max(1, int(src.width / step)))
         exact = shape == (src.height, src.width)
         raw = src.read(1, out_shape=shape, resampling=rasterio.enums.Resampling.nearest)
-        values, mask = _valid(raw, src.nodata)
+        values, mask = valid_values(raw, src.nodata)
     return values[mask], exact
 
 

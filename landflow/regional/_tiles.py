@@ -16,6 +16,7 @@ from affine import Affine
 from ..analyses.regional import ring_current, shifted
 from ..errors import InputError
 from ..grid import Grid
+from ..io._atomic import atomic_path, sha256_of
 from ..io.windows import crs_from_text, read_window, write_tile
 
 __all__ = ["TileJob", "tile_flow", "solve_tile", "solve_uniform", "settings_digest"]
@@ -116,9 +117,13 @@ def tile_flow(job):
     solvers : list of Solver
     """
     values, mask = _read(job)
-    digest = hashlib.sha256(job.digest.encode() + values.tobytes() + mask.tobytes()).hexdigest()
     core, solvers = _solve(job, _window_grid(job, values, mask))
-    return core, digest, solvers
+    return core, _window_digest(job, values, mask), solvers
+
+
+def _window_digest(job, values, mask):
+    """A tile's identity: SHA-256 of the shared settings and of its window's values and mask."""
+    return hashlib.sha256(job.digest.encode() + values.tobytes() + mask.tobytes()).hexdigest()
 
 
 def _peak_bytes():
@@ -133,12 +138,10 @@ def _finished(job, digest):
         return None
     if record.get("digest") != digest or not job.tile_path.is_file():
         return None
-    from ..io._atomic import sha256_of
     return record if sha256_of(job.tile_path) == record.get("sha256") else None
 
 
 def _write(job, core, digest, started, solvers):
-    from ..io._atomic import sha256_of
     r, c = job.row0 + job.core[0], job.col0 + job.core[1]
     t = shifted(Affine(*job.transform), r, c)
     write_tile(job.tile_path, core, transform=t, crs=job.crs)
@@ -146,9 +149,8 @@ def _write(job, core, digest, started, solvers):
               "core": [int(r), int(c), int(job.core[2]), int(job.core[3])],
               "seconds": round(time.perf_counter() - started, 3), "peak_bytes": _peak_bytes(),
               "solvers": [s.record() for s in solvers], "worker_pid": os.getpid()}
-    tmp = job.record_path.with_name(job.record_path.name + f".partial-{os.getpid()}")
-    tmp.write_text(json.dumps(record, indent=1), encoding="utf-8")
-    os.replace(tmp, job.record_path)
+    with atomic_path(job.record_path) as tmp:
+        tmp.write_text(json.dumps(record, indent=1), encoding="utf-8")
     return record
 
 
@@ -159,7 +161,7 @@ def solve_tile(job):
     """
     started = time.perf_counter()
     values, mask = _read(job)
-    digest = hashlib.sha256(job.digest.encode() + values.tobytes() + mask.tobytes()).hexdigest()
+    digest = _window_digest(job, values, mask)
     record = _finished(job, digest)
     if record is not None:
         return {**record, "status": "up to date", "seconds": time.perf_counter() - started}
