@@ -80,17 +80,15 @@ def _jobs(study, info, plan, extra, folder):
     land, solver = study.settings["landscape"], study.settings["solver"]
     from ..analyses.regional import ring_offset
     offset = ring_offset(s["seed"])
-    shared = {"landflow_version": __version__, "window": plan.window, "buffer": plan.buffer,
-              "ring_nodes": s["ring_nodes"], "offset": offset, "buffer_value": extra["buffer_value"],
-              "kind": extra["kind"], "neighbours": land["neighbours"], "edge_rule": land["edge_rule"],
-              "values_per": land["values_per"], "method": solver["method"], "tolerance": solver["tolerance"],
-              "transform": tuple(info.transform)[:6], "crs": info.crs.to_string() if info.crs else None}
+    # every setting that shapes a tile's numbers: the tasks' fields, and (with the version) the tiles' digest
+    common = {"window": plan.window, "buffer": plan.buffer, "ring_nodes": s["ring_nodes"], "offset": offset,
+              "buffer_value": extra["buffer_value"], "kind": extra["kind"], "neighbours": land["neighbours"],
+              "edge_rule": land["edge_rule"], "values_per": land["values_per"], "method": solver["method"],
+              "tolerance": solver["tolerance"], "transform": tuple(info.transform)[:6],
+              "crs": info.crs.to_string() if info.crs else None}
+    shared = {"landflow_version": __version__, **common}
     digest = settings_digest(shared)
-    base = dict(source=str(extra["path"]), shape=plan.shape, transform=tuple(info.transform)[:6],
-                crs=shared["crs"], window=plan.window, buffer=plan.buffer, ring_nodes=s["ring_nodes"],
-                offset=offset, buffer_value=extra["buffer_value"], kind=extra["kind"],
-                neighbours=land["neighbours"], edge_rule=land["edge_rule"], values_per=land["values_per"],
-                method=solver["method"], tolerance=solver["tolerance"], folder=str(folder), digest=digest)
+    base = dict(common, source=str(extra["path"]), shape=plan.shape, folder=str(folder), digest=digest)
     jobs = []
     for t in plan.tiles:
         r, c = plan.core_in_window(t)
