@@ -349,9 +349,9 @@ class Solver:
             out["cg_iterations_max"] = int(max(self.iterations))
         if self.factor_nonzeros is not None:
             out["factor_nonzeros"] = self.factor_nonzeros
-        for key in ("factor_bytes", "ordering", "supernodes"):
+        for key in ("bytes", "ordering", "supernodes"):
             if key in self.factor_size:
-                out[f"factor_{key}" if key != "factor_bytes" else key] = self.factor_size[key]
+                out[f"factor_{key}"] = self.factor_size[key]
         return out
 
 
@@ -405,11 +405,11 @@ def _cholmod_factor(system, ordering=None, *, memory_share=None):
         cholmod.options.clear()
         cholmod.options.update(saved)
     size = _cholmod_size(factor, n)
-    if memory_share is not None and "factor_bytes" in size:
+    if memory_share is not None and "bytes" in size:
         free = available_memory()
-        need = size["factor_bytes"] + _CHOLMOD_COPY_BYTES * len(system)
+        need = size["bytes"] + _CHOLMOD_COPY_BYTES * len(system)
         if free is not None and need > memory_share * free:
-            raise _FactorTooLarge(f"the CHOLMOD factor of {n} unknowns needs {size['factor_bytes'] / 1e9:.1f} GB "
+            raise _FactorTooLarge(f"the CHOLMOD factor of {n} unknowns needs {size['bytes'] / 1e9:.1f} GB "
                                   f"and its numeric phase {need / 1e9:.1f} GB, more than {round(100 * memory_share)}% "
                                   f"of the {free / 1e9:.1f} GB available")
     try:
@@ -470,7 +470,7 @@ def _cholmod_size(factor, n):
     cvxopt gives no access to it, so the fields are read with ctypes from the ``cholmod_factor`` the
     capsule holds, whose leading fields have kept their layout since CHOLMOD 1.0 (n, minor, Perm,
     ColCount, ..., nsuper, ssize, xsize, ..., ordering, is_ll, is_super, ..., itype). Returns
-    ``nonzeros`` (nonzeros of L, the sum of its column counts), ``factor_bytes`` (supernodal values
+    ``nonzeros`` (nonzeros of L, the sum of its column counts), ``bytes`` (supernodal values
     and row indices: 8 (xsize + ssize)), ``supernodes`` and ``ordering``; an empty dict when the
     structure does not look as expected (another CHOLMOD build), so nothing wrong is ever recorded.
     """
@@ -499,7 +499,7 @@ def _cholmod_size(factor, n):
         if is_super:
             nsuper, ssize, xsize = sizes[13], sizes[14], sizes[15]
             if nonzeros <= xsize <= 64 * nonzeros and 0 < nsuper <= n:
-                out["factor_bytes"] = int(8 * (xsize + ssize))
+                out["bytes"] = int(8 * (xsize + ssize))
                 out["supernodes"] = int(nsuper)
         return out
     except (AttributeError, ValueError, TypeError, OSError):
