@@ -142,8 +142,7 @@ def patch_voltages(graph, *, method="auto", tolerance=1e-8, progress=None):
             targets = members[1 + cols]
             if np.all(np.diff(targets) == 1):          # neighbouring columns: a slice, not an index array
                 targets = slice(int(targets[0]), int(targets[-1]) + 1)
-                potential[rows, targets] = solution
-            elif sliced:
+            if sliced or isinstance(targets, slice):     # at most one index array: plain indexing
                 potential[rows, targets] = solution
             else:
                 potential[np.ix_(keep, targets)] = solution
