@@ -14,7 +14,7 @@ import pandas as pd
 from ..errors import InputError
 from ..graph import cell_edges
 from .current import current_density, pair_current, pair_weights
-from .resistance import effective_resistance
+from .resistance import RHS_BLOCK_VALUES, _symmetric_submatrix, effective_resistance
 
 __all__ = [
     "pair_nodes", "check_connected_pairs", "objective_weights", "connectivity", "link_conductance", "corridor_ranking",
@@ -549,8 +549,9 @@ def edge_loss(voltages, weights, edges, *, method="auto", tolerance=1e-8):
             continue
         position = np.full(graph.n_nodes, -1)
         position[keep] = np.arange(keep.size)
-        solver = factorize(laplacian[keep][:, keep], method=method, tolerance=tolerance, n_rhs=these.size)
-        width = max(1, (1 << 24) // max(keep.size, 1))
+        solver = factorize(_symmetric_submatrix(laplacian, keep), method=method, tolerance=tolerance,
+                           n_rhs=these.size)
+        width = max(1, RHS_BLOCK_VALUES // max(keep.size, 1))
         for first in range(0, these.size, width):
             block = these[first:first + width]
             rhs = np.zeros((keep.size, block.size))
@@ -569,8 +570,7 @@ def edge_loss(voltages, weights, edges, *, method="auto", tolerance=1e-8):
     k = graph.n_patches
     a, b = np.triu_indices(k, 1)
     pair_w = w[a, b]
-    with np.errstate(divide="ignore", invalid="ignore"):
-        before = float(np.sum(np.where(pair_w > 0, pair_w / r[a, b], 0.0)))
+    before = connectivity(r, w)
     potential = voltages.potential
     slack = 1.0 - c * end_resistance
     bridge = active & (slack <= 1e-9)
