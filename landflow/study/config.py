@@ -220,7 +220,8 @@ SECTIONS = {
        "raster) or 'mean' (area-weighted average: rates, probabilities; not counts). The manifest records each "
        "warp. The landscape raster itself is never resampled."),
     "solver": Section({
-        "method": Key(str, "auto", "linear solver: auto (direct while its factor fits in memory and beats multigrid, else multigrid), direct (the fastest "
+        "method": Key(str, "auto", "linear solver: auto (direct while its factor fits in memory and beats "
+                                   "multigrid, else multigrid), direct (the fastest "
                                    "direct engine installed), multigrid (AMG + CG), or one direct engine: "
                                    "superlu, cholmod or pardiso (the last two from the 'fast' extra)",
                       choices=METHODS),
