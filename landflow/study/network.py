@@ -39,6 +39,7 @@ class NetworkContext(RunContext):
         self.from_suitability = False
         self.node_columns = {}
         self.edge_columns = {}
+        self._changed_networks = {}
         with self.timed("read inputs"):
             self.network = self._read_network(spec["edges"])
             features = zones["features"]
@@ -63,7 +64,15 @@ class NetworkContext(RunContext):
                             one_way_column=spec["one_way_column"], symmetrise_one_way=spec["symmetrise_one_way"])
 
     def read_changed_network(self, path, key):
-        """Another edge file read as [network] reads its edges, with the same zones, as a graph."""
+        """Another edge file read as [network] reads its edges, with the same zones, as a graph.
+
+        Read once: the step's check and its run share the result (a network is small next to a raster).
+        """
+        if path not in self._changed_networks:
+            self._changed_networks[path] = self._read_changed_network(path, key)
+        return self._changed_networks[path]
+
+    def _read_changed_network(self, path, key):
         try:
             changed = self._read_network(path)
         except InputError as exc:
