@@ -6,7 +6,7 @@ shell over it.
 >>> import landflow as lf
 >>> grid = lf.Grid.from_array([[1.0, 1.0, 1.0]])
 >>> graph = lf.build_graph(grid, [[1, 0, 2]])
->>> float(lf.effective_resistance(lf.patch_voltages(graph))[0, 1])
+>>> round(float(lf.effective_resistance(lf.patch_voltages(graph))[0, 1]), 9)
 2.0
 """
 

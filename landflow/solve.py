@@ -12,7 +12,9 @@ Two backends behind one interface:
     ordering of A^T + A.
   - ``cholmod``: CHOLMOD's supernodal Cholesky factorisation (SuiteSparse)
     through the optional :mod:`cvxopt` package (``pip install landflow[fast]``;
-    cvxopt is GPL-3 licensed, which is why it is optional).
+    cvxopt is GPL-3 licensed, which is why it is optional). Its numeric phase
+    runs on landflow's arrays through the CHOLMOD library cvxopt ships, which
+    spares cvxopt's copies of the matrix (:func:`_cholmod_factor`).
   - ``pardiso``: Intel MKL Pardiso through the optional :mod:`pypardiso`
     package (``pip install landflow[fast]``, x86-64 only), a multithreaded
     Cholesky-type factorisation with its own nested-dissection ordering.
@@ -103,13 +105,12 @@ _SINGULAR = ("The system is singular: some part of the graph is not tied to a gr
 FACTOR_BYTES_PER_UNKNOWN_LOG2 = {"superlu": 100.0, "pardiso": 80.0, "cholmod": 36.0}
 
 #: Share of the memory available after CHOLMOD's symbolic analysis that its numeric phase may take: the
-#: factor plus the two copies of the matrix's triangle made during it (cvxopt packs one, CHOLMOD permutes
-#: and transposes it into another; 2.6 GB next to a 12.2 GB factor at 16 million unknowns, measured).
-#: Above it, ``auto`` falls back to multigrid.
+#: factor, plus the copies of the matrix's triangle made during it when it goes through cvxopt (see
+#: :func:`_cholmod_factor`). Above it, ``auto`` falls back to multigrid.
 CHOLMOD_MEMORY_SHARE = 0.95
 
 #: Bytes per stored entry of the triangle (a double and a 64-bit row index) in each of those copies.
-_CHOLMOD_COPY_BYTES = 2 * 16
+_CHOLMOD_COPY_BYTES = 16
 
 
 def factor_bytes(n_unknowns, engine):
@@ -218,6 +219,9 @@ class Solver:
     n_unknowns : int
     matrix : sparse matrix or None
         The system, kept for the residual checks; None when ``factorize`` was given a ``product``.
+    ordering : ndarray of int or None
+        The permutation the engine's unknowns follow (SuperLU and CHOLMOD given an ordering other than
+        the identity); the solves apply it and undo it.
     setup_seconds : float
     worst_residual : float
         The largest relative residual seen so far.
@@ -226,9 +230,9 @@ class Solver:
     """
 
     def __init__(self, matrix, method, tolerance, *, engine=None, ordering=None, memory_share=None, product=None,
-                 cholmod_system=None):
+                 lower=None):
         self.matrix = matrix
-        self.n_unknowns = int(matrix.shape[0] if matrix is not None else cholmod_system.size[0])
+        self.n_unknowns = int(matrix.shape[0] if matrix is not None else lower.shape[0])
         self.method = method
         self.engine = engine or ("pyamg" if method == "multigrid" else "superlu")
         self.tolerance = tolerance
@@ -236,18 +240,17 @@ class Solver:
         self.iterations = []
         self.n_solved = 0
         self.solve_seconds = 0.0
-        self.ordering = None
+        self.ordering = None            # a permutation the engine's unknowns follow (None: the system's own order)
         self.factor_nonzeros = None
         self.factor_size = {}
         start = time.perf_counter()
+        if ordering is not None and self.engine in ("superlu", "cholmod"):
+            ordering = _check_ordering(ordering, self.n_unknowns)
+            if not np.array_equal(ordering, np.arange(ordering.size)):
+                self.ordering = ordering
         if self.engine == "superlu":
             if ordering is not None:
-                ordering = _check_ordering(ordering, matrix.shape[0])
-                if np.array_equal(ordering, np.arange(ordering.size)):
-                    permuted = _symmetric_csc(matrix)   # already in the wanted order: no copy of the permutation
-                else:
-                    self.ordering = ordering
-                    permuted = _symmetric_csc(matrix[ordering][:, ordering])
+                permuted = _symmetric_csc(matrix if self.ordering is None else matrix[ordering][:, ordering])
                 spec = "NATURAL"
             else:
                 permuted, spec = _symmetric_csc(matrix), "MMD_AT_PLUS_A"
@@ -272,12 +275,11 @@ class Solver:
             except Exception as exc:  # pypardiso raises its own error class on a failed phase
                 raise SolverError(f"direct factorisation (pardiso) failed: {exc}. {_SINGULAR}") from exc
         elif self.engine == "cholmod":
-            if ordering is not None:
-                ordering = _check_ordering(ordering, self.n_unknowns)
-            if cholmod_system is None:
-                cholmod_system = _cholmod_system(matrix)
-            self._factor, self.factor_size = _cholmod_factor(cholmod_system, ordering, memory_share=memory_share)
-            del cholmod_system
+            if lower is None:
+                lower = _lower_csc(matrix, self.ordering)
+            self._factor, self.factor_size = _cholmod_factor(lower, ordered=ordering is not None,
+                                                             memory_share=memory_share)
+            del lower
             self.factor_nonzeros = self.factor_size.get("nonzeros")
         else:
             self._ml = _multigrid_hierarchy(matrix.tocsr())
@@ -290,42 +292,62 @@ class Solver:
         return (f"Solver(method={self.method!r}, unknowns={self.n_unknowns}, "
                 f"solved={self.n_solved}, worst_residual={self.worst_residual:.2e})")
 
-    def solve(self, b):
-        """Solve for one right-hand side (n,) or several (n, m); returns float64 of b's shape."""
+    def solve(self, b, *, check=True):
+        """Solve for one right-hand side (n,) or several (n, m); returns float64 of b's shape.
+
+        With ``check`` (the default) each column's residual is checked at once (:meth:`check`). A caller
+        that holds the right-hand sides can pass ``check=False`` and call :meth:`check` itself later, for
+        example once the factor is released and the memory it took is free for the check's products.
+        """
         if getattr(self, "_released", False):
             raise SolverError(f"this {self.method} solver was released after its solves (Solver.release); "
                               "factorise the system again to solve more right-hand sides.")
         b = np.asarray(b, dtype=np.float64)
         start = time.perf_counter()
-        if self.engine == "superlu":
-            with one_blas_thread():
-                if self.ordering is None:
-                    x = self._lu.solve(b)
-                else:
-                    x = np.empty_like(b)
-                    x[self.ordering] = self._lu.solve(b[self.ordering])
-            limit = max(DIRECT_RESIDUAL_LIMIT, self.tolerance)
+        if self.engine in ("superlu", "cholmod"):
+            engine_solve = self._superlu_solve if self.engine == "superlu" else self._cholmod_solve
+            if self.ordering is None:
+                x = engine_solve(b)
+            else:
+                x = np.empty_like(b)
+                x[self.ordering] = engine_solve(b[self.ordering])
         elif self.engine == "pardiso":
             x = np.asarray(self._pardiso.solve(self._upper, b)).reshape(b.shape)
-            limit = max(DIRECT_RESIDUAL_LIMIT, self.tolerance)
-        elif self.engine == "cholmod":
-            x = _cholmod_solve(self._factor, b)
-            limit = max(DIRECT_RESIDUAL_LIMIT, self.tolerance)
         else:
             x = np.column_stack([self._cg(col) for col in b.reshape(b.shape[0], -1).T]).reshape(b.shape)
-            limit = self.tolerance * 10  # CG stops on a preconditioned norm; allow that slack
-        residual = _relative_residual(self._product or self.matrix, x, b)
-        self.worst_residual = max(self.worst_residual, residual)
         self.n_solved += 1 if b.ndim == 1 else b.shape[1]
         self.solve_seconds += time.perf_counter() - start
+        if check:
+            self.check(x, b)
+        return x
+
+    def check(self, x, b):
+        """Check the solution ``x`` of right-hand sides ``b`` column by column; raise past the limit.
+
+        The limit is ``max(tolerance, 1e-6)`` for direct engines and ``10 * tolerance`` for multigrid
+        (CG stops on a preconditioned norm). The worst residual is kept for the manifest.
+        """
+        start = time.perf_counter()
+        b = np.asarray(b, dtype=np.float64)
+        direct = self.method == "direct"
+        limit = max(DIRECT_RESIDUAL_LIMIT, self.tolerance) if direct else self.tolerance * 10
+        residual = _relative_residual(self._product or self.matrix, x, b)
+        self.worst_residual = max(self.worst_residual, residual)
+        self.solve_seconds += time.perf_counter() - start
         if not residual <= limit:
-            fix = ("The system is singular or nearly so (an ungrounded part of the graph?)."
-                   if self.method == "direct" else "Try solver method 'direct' or a looser tolerance.")
+            fix = ("The system is singular or nearly so (an ungrounded part of the graph?)." if direct
+                   else "Try solver method 'direct' or a looser tolerance.")
             raise SolverError(
                 f"{self.method} solve reached relative residual {residual:.2e}, above {limit:.0e}. {fix}",
                 residual=residual,
                 iterations=self.iterations[-1] if self.iterations else None)
-        return x
+
+    def _superlu_solve(self, b):
+        with one_blas_thread():
+            return self._lu.solve(b)
+
+    def _cholmod_solve(self, b):
+        return _cholmod_solve(self._factor, b)
 
     def _cg(self, b):
         residuals = []
@@ -359,78 +381,118 @@ class _FactorTooLarge(SolverError):
     """CHOLMOD's symbolic analysis found a factor larger than the memory allowed for it."""
 
 
-def _cholmod_system(matrix):
-    """The lower triangle of a symmetric scipy matrix as the cvxopt sparse matrix CHOLMOD reads."""
+def _cvxopt_lower(lower):
+    """The lower triangle (scipy CSC, sorted) as the cvxopt sparse matrix CHOLMOD's cvxopt interface reads."""
     from cvxopt import matrix as dense, spmatrix
 
-    lower = _lower_csc(matrix)
     columns = np.repeat(np.arange(lower.shape[1], dtype=np.int64), np.diff(lower.indptr))
     system = spmatrix(dense(lower.data), dense(lower.indices.astype(np.int64)), dense(columns), lower.shape)
-    del lower, columns
+    del columns
     return system
 
 
-def _scipy_from_cholmod_system(system):
-    """The whole symmetric scipy matrix back from its lower triangle in cvxopt form (for a fall-back)."""
-    colptr, rowind, values = (np.asarray(a).ravel() for a in system.CCS)
-    n = system.size[0]
-    lower = sp.csc_array((values, rowind, colptr), shape=(n, n))
-    return sp.csr_array(lower + lower.T - sp.diags_array(lower.diagonal()))
+def _full_from_lower(lower, ordering=None):
+    """The whole symmetric scipy matrix back from its lower triangle (for a fall-back), in the caller's order.
+
+    ``ordering`` is the permutation the triangle was taken in (:func:`_lower_csc`), undone here.
+    """
+    full = sp.csr_array(lower + lower.T - sp.diags_array(lower.diagonal()))
+    if ordering is None:
+        return full
+    inverse = np.empty_like(ordering)
+    inverse[ordering] = np.arange(ordering.size)
+    return full[inverse][:, inverse]
 
 
-def _cholmod_factor(system, ordering=None, *, memory_share=None):
-    """CHOLMOD's supernodal Cholesky factor of an SPD matrix, through cvxopt.
+def _cholmod_factor(lower, *, ordered=False, memory_share=None):
+    """CHOLMOD's supernodal Cholesky factor of an SPD matrix, given its lower triangle.
 
-    ``system`` is the matrix's lower triangle from :func:`_cholmod_system`.
-
-    With ``ordering`` (a fill-reducing permutation, such as landflow's nested dissection) CHOLMOD uses
-    it as given; otherwise it orders the unknowns itself (AMD). Returns the factor and its size from the
-    symbolic analysis (:func:`_cholmod_size`). With ``memory_share``, a factor needing more than that
-    share of the memory available after the symbolic analysis raises :class:`_FactorTooLarge` before
-    the numeric phase allocates it. Chen, Davis, Hager & Rajamanickam 2008, "Algorithm 887: CHOLMOD,
-    supernodal sparse Cholesky factorization and update/downdate", ACM TOMS 35:22,
+    ``lower`` is the lower triangle from :func:`_lower_csc`. With ``ordered`` its unknowns are already in
+    a fill-reducing order (landflow's nested dissection), which CHOLMOD keeps as it is; otherwise CHOLMOD
+    orders them itself (AMD). Returns the factor (a cvxopt capsule, for :func:`_cholmod_solve`) and its
+    size from the symbolic analysis (:func:`_cholmod_size`). With ``memory_share``, a factor needing more
+    than that share of the memory available after the symbolic analysis raises :class:`_FactorTooLarge`
+    before the numeric phase allocates it. Chen, Davis, Hager & Rajamanickam 2008, "Algorithm 887:
+    CHOLMOD, supernodal sparse Cholesky factorization and update/downdate", ACM TOMS 35:22,
     doi:10.1145/1391989.1391995.
+
+    Memory. The symbolic analysis goes through cvxopt, whose copy of the triangle is dropped as soon as
+    it is done. For the numeric phase cvxopt would pack another copy, and CHOLMOD, given an order other
+    than the natural one, would make two permuted transposes of that (16 bytes per entry each: 2.6 GB
+    at 16 million unknowns, beside a 12 GB factor). So an ordered system is analysed with the identity
+    permutation and no postordering (the nested-dissection order is a postorder of its elimination tree
+    already: the same nonzeros, measured), the factor is marked as being in natural order
+    (:func:`_cholmod_mark_natural`), and the numeric phase runs on ``lower``'s own arrays through
+    CHOLMOD's C interface (:class:`_CholmodLibrary`). Where that library cannot be reached, cvxopt's
+    numeric phase is used, with its copies.
     """
     from cvxopt import cholmod, matrix as dense
 
-    n = system.size[0]
+    n = lower.shape[0]
+    system = _cvxopt_lower(lower)
     saved = dict(cholmod.options)
     try:
-        if ordering is not None:
+        if ordered:
             cholmod.options["nmethods"] = 1          # the given order only, without also trying AMD
-            factor = cholmod.symbolic(system, p=dense(ordering.astype(np.int64), tc="i"))
+            cholmod.options["postorder"] = False     # ... and kept as it is
+            factor = cholmod.symbolic(system, p=dense(np.arange(n, dtype=np.int64), tc="i"))
         else:
             factor = cholmod.symbolic(system)
     finally:
         cholmod.options.clear()
         cholmod.options.update(saved)
     size = _cholmod_size(factor, n)
+    natural = ordered and _cholmod_mark_natural(factor, n)
+    library = _CholmodLibrary.load()
+    if library is not None:
+        del system                                   # the numeric phase reads lower's arrays in place
+        copies = 0
+    else:                                            # cvxopt packs a copy; CHOLMOD transposes unless natural
+        copies = 1 if natural else 2
     if memory_share is not None and "bytes" in size:
         free = available_memory()
-        need = size["bytes"] + _CHOLMOD_COPY_BYTES * len(system)
+        need = size["bytes"] + _CHOLMOD_COPY_BYTES * copies * lower.nnz
         if free is not None and need > memory_share * free:
             raise _FactorTooLarge(f"the CHOLMOD factor of {n} unknowns needs {size['bytes'] / 1e9:.1f} GB "
                                   f"and its numeric phase {need / 1e9:.1f} GB, more than {round(100 * memory_share)}% "
                                   f"of the {free / 1e9:.1f} GB available")
-    try:
-        cholmod.numeric(system, factor)
-    except ArithmeticError as exc:      # not positive definite: a pivot <= 0
-        raise SolverError(f"direct factorisation (cholmod) failed: {exc}. {_SINGULAR}") from None
+    if library is not None:
+        minor = library.factorize(lower, factor)
+    else:
+        try:
+            cholmod.numeric(system, factor)
+            minor = n
+        except ArithmeticError as exc:              # not positive definite: a pivot <= 0
+            minor = exc.args[0] if exc.args else 0
+    if minor < n:
+        raise SolverError(f"direct factorisation (cholmod) failed: the matrix is not positive definite "
+                          f"(pivot {minor}). {_SINGULAR}")
     return factor, size
 
 
-def _lower_csc(matrix):
-    """The lower triangle of a symmetric CSR matrix as CSC with sorted indices: its upper triangle's rows.
+def _lower_csc(matrix, ordering=None):
+    """The lower triangle of a symmetric CSR matrix (``ordering``: of ``matrix[ordering][:, ordering]``).
 
-    Row i of the upper triangle (columns >= i) is column i of the lower one, so no transposed copy is made
-    and only the kept entries are copied.
+    CSC with sorted indices and 64-bit index arrays, as CHOLMOD's long-integer interface reads them in
+    place. Column j of the lower triangle is row j's entries at columns >= j (the matrix is symmetric),
+    so one row gather, the columns renumbered, gives it: no transposed or permuted copy of the whole
+    matrix is made.
     """
-    rows = np.repeat(np.arange(matrix.shape[0], dtype=matrix.indices.dtype), np.diff(matrix.indptr))
-    keep = matrix.indices >= rows
+    n = matrix.shape[0]
+    if ordering is None:
+        columns = matrix.indices.astype(np.int64)
+    else:
+        matrix = matrix[ordering]                   # row j is row ordering[j]
+        inverse = np.empty(n, dtype=np.int64)
+        inverse[ordering] = np.arange(n)
+        columns = inverse[matrix.indices]
+    rows = np.repeat(np.arange(n, dtype=np.int64), np.diff(matrix.indptr))
+    keep = columns >= rows
     del rows
-    counts = np.add.reduceat(keep, matrix.indptr[:-1]) if matrix.nnz else np.zeros(matrix.shape[0], int)
-    indptr = np.concatenate([[0], np.cumsum(counts)])
-    lower = sp.csc_matrix((matrix.data[keep], matrix.indices[keep], indptr), shape=matrix.shape)
+    indptr = np.zeros(n + 1, dtype=np.int64)
+    np.cumsum(np.add.reduceat(keep, matrix.indptr[:-1]) if matrix.nnz else np.zeros(n, np.int64), out=indptr[1:])
+    lower = sp.csc_array((matrix.data[keep], columns[keep], indptr), shape=(n, n))
+    del keep, columns, matrix
     lower.sort_indices()
     return lower
 
@@ -464,15 +526,14 @@ def _cholmod_solve(factor, b):
     return x.reshape(b.shape)
 
 
-def _cholmod_size(factor, n):
-    """The size of a CHOLMOD factor from its symbolic analysis, read from CHOLMOD's factor structure.
+def _factor_struct(factor, n):
+    """The address of the ``cholmod_factor`` a cvxopt capsule holds, and its index type, or None.
 
-    cvxopt gives no access to it, so the fields are read with ctypes from the ``cholmod_factor`` the
-    capsule holds, whose leading fields have kept their layout since CHOLMOD 1.0 (n, minor, Perm,
-    ColCount, ..., nsuper, ssize, xsize, ..., ordering, is_ll, is_super, ..., itype). Returns
-    ``nonzeros`` (nonzeros of L, the sum of its column counts), ``bytes`` (supernodal values
-    and row indices: 8 (xsize + ssize)), ``supernodes`` and ``ordering``; an empty dict when the
-    structure does not look as expected (another CHOLMOD build), so nothing wrong is ever recorded.
+    cvxopt gives no access to the factor's fields, so they are read with ctypes. Their leading fields
+    have kept their layout since CHOLMOD 1.0: n, minor, Perm, ColCount, IPerm, nzmax, p, i, x, z, nz,
+    next, prev, nsuper, ssize, xsize, maxcsize, maxesize, super, pi, px, s (sizes and pointers), then the
+    ints ordering, is_ll, is_super, is_monotonic, itype. None when the structure does not look as
+    expected (another CHOLMOD build), so that nothing is read or changed on a guess.
     """
     import ctypes
 
@@ -482,28 +543,203 @@ def _cholmod_size(factor, n):
         pointer = ctypes.pythonapi.PyCapsule_GetPointer
         pointer.restype, pointer.argtypes = ctypes.c_void_p, [ctypes.py_object, ctypes.c_char_p]
         address = pointer(factor, name(factor))
-        sizes = (ctypes.c_size_t * 18).from_address(address)
-        flags = (ctypes.c_int * 5).from_address(address + 22 * ctypes.sizeof(ctypes.c_size_t))
-        colcount = ctypes.c_void_p.from_address(address + 3 * ctypes.sizeof(ctypes.c_size_t)).value
-        ordering, is_super, itype = flags[0], flags[2], flags[4]
-        if sizes[0] != n or itype not in (0, 2) or is_super not in (0, 1) or not colcount:
-            return {}
-        integer = ctypes.c_int64 if itype == 2 else ctypes.c_int32      # CHOLMOD_LONG or CHOLMOD_INT
-        counts = np.frombuffer((integer * n).from_address(colcount), dtype=np.dtype(integer))
-        nonzeros = int(counts.sum())
-        if not n <= nonzeros <= n * (n + 1) // 2:
-            return {}
-        out = {"nonzeros": nonzeros,
-               "ordering": {0: "natural", 1: "given", 2: "amd", 3: "metis", 4: "nesdis", 5: "colamd",
-                            6: "postordered"}.get(ordering, str(ordering))}
-        if is_super:
-            nsuper, ssize, xsize = sizes[13], sizes[14], sizes[15]
-            if nonzeros <= xsize <= 64 * nonzeros and 0 < nsuper <= n:
-                out["bytes"] = int(8 * (xsize + ssize))
-                out["supernodes"] = int(nsuper)
-        return out
     except (AttributeError, ValueError, TypeError, OSError):
+        return None
+    size_t = ctypes.sizeof(ctypes.c_size_t)
+    flags = (ctypes.c_int * 5).from_address(address + 22 * size_t)
+    is_super, itype = flags[2], flags[4]
+    if (ctypes.c_size_t.from_address(address).value != n or itype not in (0, 2) or is_super not in (0, 1)
+            or not ctypes.c_void_p.from_address(address + 3 * size_t).value):
+        return None
+    return address, (np.int64 if itype == 2 else np.int32)      # CHOLMOD_LONG or CHOLMOD_INT
+
+
+def _factor_array(address, field, n, integer):
+    """The factor's integer array of length n whose pointer is leading field ``field`` (2: Perm, 3: ColCount)."""
+    import ctypes
+
+    pointer = ctypes.c_void_p.from_address(address + field * ctypes.sizeof(ctypes.c_size_t)).value
+    if not pointer:
+        return None
+    return np.ctypeslib.as_array((np.ctypeslib.as_ctypes_type(integer) * n).from_address(pointer))
+
+
+def _cholmod_size(factor, n):
+    """The size of a CHOLMOD factor from its symbolic analysis, read from CHOLMOD's factor structure.
+
+    Returns ``nonzeros`` (nonzeros of L, the sum of its column counts), ``bytes`` (supernodal values
+    and row indices: 8 (xsize + ssize)), ``supernodes`` and ``ordering``; an empty dict when the
+    structure does not look as expected (:func:`_factor_struct`), so nothing wrong is ever recorded.
+    """
+    import ctypes
+
+    found = _factor_struct(factor, n)
+    if found is None:
         return {}
+    address, integer = found
+    nonzeros = int(_factor_array(address, 3, n, integer).sum())
+    if not n <= nonzeros <= n * (n + 1) // 2:
+        return {}
+    sizes = (ctypes.c_size_t * 18).from_address(address)
+    ordering, is_super = (ctypes.c_int * 3).from_address(address + 22 * ctypes.sizeof(ctypes.c_size_t))[::2]
+    out = {"nonzeros": nonzeros,
+           "ordering": {0: "natural", 1: "given", 2: "amd", 3: "metis", 4: "nesdis", 5: "colamd",
+                        6: "postordered"}.get(ordering, str(ordering))}
+    if is_super:
+        nsuper, ssize, xsize = sizes[13], sizes[14], sizes[15]
+        if nonzeros <= xsize <= 64 * nonzeros and 0 < nsuper <= n:
+            out["bytes"] = int(8 * (xsize + ssize))
+            out["supernodes"] = int(nsuper)
+    return out
+
+
+def _cholmod_mark_natural(factor, n):
+    """Mark a symbolic factor whose permutation is the identity as being in natural order; True if done.
+
+    CHOLMOD's numeric phase permutes and transposes the matrix twice unless the factor's ordering is the
+    natural one, even when the permutation it was given is the identity; with the mark it reads the
+    lower triangle as it is. The permutation is checked to be the identity first, entry by entry, so the
+    mark never changes what is factorised (cholmod_factorize.c, "S = A" for the natural ordering).
+    """
+    import ctypes
+
+    found = _factor_struct(factor, n)
+    if found is None:
+        return False
+    address, integer = found
+    ordering = ctypes.c_int.from_address(address + 22 * ctypes.sizeof(ctypes.c_size_t))
+    perm = _factor_array(address, 2, n, integer)
+    if ordering.value != 1 or perm is None or not np.array_equal(perm, np.arange(n, dtype=integer)):
+        return False        # not "given", or not the identity
+    ordering.value = 0      # CHOLMOD_NATURAL
+    return True
+
+
+class _CholmodLibrary:
+    """CHOLMOD's own C functions, from the library cvxopt's extension loads, called with ctypes.
+
+    cvxopt's numeric phase copies the matrix into a packed triangle of its own; calling
+    ``cholmod_l_factorize`` directly on a ``cholmod_sparse`` whose arrays are numpy's spares that copy
+    (1.3 GB at 16 million unknowns). Only the structures whose layout CHOLMOD has kept since version 1.0
+    are used: ``cholmod_sparse`` is filled here, the ``cholmod_factor`` comes from cvxopt's symbolic
+    analysis, and a ``cholmod_common`` is started by ``cholmod_l_start`` in a buffer larger than the
+    structure. Its leading fields are checked against CHOLMOD's documented defaults before its ``print``
+    level is set to 0 (no messages on standard output); any mismatch, a missing library or a missing
+    function and :meth:`load` returns None, so that cvxopt's numeric phase is used instead.
+    """
+
+    _COMMON_BYTES = 1 << 16             # more than sizeof(cholmod_common) in CHOLMOD 3 to 5 (about 2.3 kB)
+    _PRINT_OFFSET = 144                 # Common->print, after the fields checked in _defaults_as_expected
+    _instance = False                   # not looked for yet
+
+    def __init__(self, lib):
+        import ctypes
+
+        self._lib = lib
+        for name in ("cholmod_l_start", "cholmod_l_finish", "cholmod_l_factorize"):
+            getattr(lib, name).restype = ctypes.c_int
+        lib.cholmod_l_start.argtypes = lib.cholmod_l_finish.argtypes = [ctypes.c_void_p]
+        lib.cholmod_l_factorize.argtypes = [ctypes.c_void_p, ctypes.c_void_p, ctypes.c_void_p]
+
+        class Sparse(ctypes.Structure):                 # cholmod_sparse
+            _fields_ = [("nrow", ctypes.c_size_t), ("ncol", ctypes.c_size_t), ("nzmax", ctypes.c_size_t),
+                        ("p", ctypes.c_void_p), ("i", ctypes.c_void_p), ("nz", ctypes.c_void_p),
+                        ("x", ctypes.c_void_p), ("z", ctypes.c_void_p), ("stype", ctypes.c_int),
+                        ("itype", ctypes.c_int), ("xtype", ctypes.c_int), ("dtype", ctypes.c_int),
+                        ("sorted", ctypes.c_int), ("packed", ctypes.c_int)]
+        self._sparse = Sparse
+
+    @classmethod
+    def load(cls):
+        """The library, or None where it cannot be found or does not look as expected (looked for once)."""
+        if cls._instance is False:
+            cls._instance = cls._find()
+        return cls._instance
+
+    @classmethod
+    def _find(cls):
+        import ctypes
+        import ctypes.util
+
+        import cvxopt
+        import cvxopt.cholmod  # noqa: F401  (loads the library)
+
+        candidates = []
+        try:                                    # Linux: the very file the extension loaded
+            with open("/proc/self/maps", encoding="utf-8", errors="replace") as fh:
+                candidates += sorted({line.split()[-1] for line in fh if "libcholmod" in line})
+        except OSError:
+            pass
+        package = Path(cvxopt.__file__).parent
+        for folder in (package.parent / "cvxopt.libs", package / ".dylibs", package):
+            candidates += sorted(str(p) for p in folder.glob("*cholmod*") if p.suffix in (".so", ".dylib", ".dll")
+                                 or ".so." in p.name)
+        candidates += [found for found in [ctypes.util.find_library("cholmod")] if found]
+        for candidate in candidates:
+            try:
+                lib = ctypes.CDLL(candidate)
+                library = cls(lib)
+            except (OSError, AttributeError):
+                continue
+            if library._defaults_as_expected():
+                return library
+        log.debug("solver: CHOLMOD's C interface not found beside cvxopt; its numeric phase goes through cvxopt")
+        return None
+
+    def _start(self):
+        import ctypes
+
+        common = ctypes.create_string_buffer(self._COMMON_BYTES)
+        if not self._lib.cholmod_l_start(common):
+            raise OSError("cholmod_l_start failed")
+        return common
+
+    def _defaults_as_expected(self):
+        """Whether a started Common holds CHOLMOD's defaults where this class expects them."""
+        try:
+            common = self._start()
+        except OSError:
+            return False
+        raw = bytes(common)
+        doubles = np.frombuffer(raw, np.float64, 6)             # dbound grow0 grow1 grow2 maxrank switch
+        sizes = np.frombuffer(raw, np.uint64, 2, 24)
+        ints = np.frombuffer(raw, np.int32, 7, 48)              # supernodal, final_asis ... final_resymbol
+        relax = np.frombuffer(raw, np.float64, 3, 80), np.frombuffer(raw, np.uint64, 3, 104)
+        expected = (doubles[[0, 1, 2, 5]].tolist() == [0.0, 1.2, 1.2, 40.0] and sizes.tolist() == [5, 8]
+                    and ints.tolist() == [1, 1, 1, 0, 1, 1, 0] and relax[0].tolist() == [0.8, 0.1, 0.05]
+                    and relax[1].tolist() == [4, 16, 48]
+                    and np.frombuffer(raw, np.int32, 1, self._PRINT_OFFSET)[0] == 3)
+        self._lib.cholmod_l_finish(common)
+        return expected
+
+    def factorize(self, lower, factor):
+        """The numeric phase into ``factor`` (cvxopt's symbolic factor) from ``lower``'s own arrays.
+
+        Returns CHOLMOD's ``minor``: n when the matrix is positive definite, else the failing column.
+        """
+        import ctypes
+
+        n = lower.shape[0]
+        found = _factor_struct(factor, n)
+        if found is None or found[1] is not np.int64:
+            raise SolverError("direct factorisation (cholmod): the symbolic factor is not CHOLMOD's "
+                              "long-integer kind that landflow expects; use solver method 'superlu'.")
+        address = found[0]
+        indptr, indices, data = (np.ascontiguousarray(a, dtype=t) for a, t in
+                                 ((lower.indptr, np.int64), (lower.indices, np.int64), (lower.data, np.float64)))
+        matrix = self._sparse(nrow=n, ncol=n, nzmax=data.size, p=indptr.ctypes.data, i=indices.ctypes.data,
+                              nz=None, x=data.ctypes.data, z=None, stype=-1, itype=2, xtype=1, dtype=0,
+                              sorted=1, packed=1)       # lower triangle, CHOLMOD_LONG, CHOLMOD_REAL, double
+        common = self._start()
+        ctypes.c_int.from_address(ctypes.addressof(common) + self._PRINT_OFFSET).value = 0
+        try:
+            ok = self._lib.cholmod_l_factorize(ctypes.byref(matrix), address, common)
+        finally:
+            self._lib.cholmod_l_finish(common)
+        if not ok:
+            raise SolverError("direct factorisation (cholmod) failed: CHOLMOD ran out of memory or refused "
+                              "the matrix; use solver method 'multigrid' for a system this large.")
+        return int(ctypes.c_size_t.from_address(address + ctypes.sizeof(ctypes.c_size_t)).value)
 
 
 _SEED_LOCK = threading.Lock()
@@ -600,23 +836,28 @@ def factorize(matrix, *, method="auto", tolerance=1e-8, n_rhs=1, ordering=None, 
     _check_grounded(matrix, pieces=not pieces_grounded)
     if engine != "cholmod":
         return Solver(matrix, method, tolerance, engine=engine, ordering=ordering, product=product)
-    # CHOLMOD reads its own copy of the lower triangle. With ``product`` nothing else needs the matrix,
-    # so this function's reference goes before the numeric phase: when the caller passed the matrix as
-    # a temporary, its memory is then free for the factor (1.7 GB on 16 million cells).
-    system = _cholmod_system(matrix)
+    # CHOLMOD reads the lower triangle (in the given order). With ``product`` nothing else needs the
+    # matrix, so this function's reference goes before the numeric phase: when the caller passed the
+    # matrix as a temporary, its memory is then free for the factor (1.7 GB on 16 million cells).
+    permutation = None
+    if ordering is not None:
+        ordering = _check_ordering(ordering, matrix.shape[0])
+        if not np.array_equal(ordering, np.arange(ordering.size)):
+            permutation = ordering
+    lower = _lower_csc(matrix, permutation)
     if product is not None:
         del matrix
         matrix = None
     reason = None
     try:
         return Solver(matrix, method, tolerance, engine=engine, ordering=ordering, product=product,
-                      memory_share=CHOLMOD_MEMORY_SHARE if fallback else None, cholmod_system=system)
+                      memory_share=CHOLMOD_MEMORY_SHARE if fallback else None, lower=lower)
     except _FactorTooLarge as exc:
         reason = str(exc)
     log.info("solver: multigrid instead of a direct factorisation: %s", reason)
     if matrix is None:
-        matrix = _scipy_from_cholmod_system(system)
-    del system
+        matrix = _full_from_lower(lower, permutation)
+    del lower
     return Solver(matrix, "multigrid", tolerance)
 
 

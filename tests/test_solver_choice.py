@@ -128,6 +128,62 @@ class TestBackendsAgree:
             assert x.shape == b.shape
             np.testing.assert_allclose(sub @ x, b, atol=1e-9)
 
+    @pytest.mark.skipif(not HAVE_CHOLMOD, reason="cvxopt (CHOLMOD, the 'fast' extra) is not installed")
+    def test_cholmod_numeric_phase_on_landflow_arrays_equals_cvxopts(self, monkeypatch):
+        # The numeric phase through CHOLMOD's C interface on landflow's own arrays, with the factor marked
+        # as natural, against cvxopt's own numeric phase (its packed copy, CHOLMOD's permuted transposes)
+        # and against SuperLU (scipy), in the nested-dissection order and in CHOLMOD's own (AMD).
+        import sys
+        graph = lognormal_graph(45, 50, [(4, 4), (40, 45), (20, 30)], seed=12)
+        sub = graph.laplacian()[1:, 1:]
+        order = nested_dissection_order(graph)
+        ordering = order[order != 0] - 1
+        rhs = np.zeros((sub.shape[0], 2), order="F")
+        rhs[[10, 1500], [0, 1]] = 1.0
+        reference = solve.factorize(sub, method="superlu").solve(rhs)
+        if sys.platform.startswith("linux"):        # the wheels bundle the library there
+            assert solve._CholmodLibrary.load() is not None
+        direct = {key: solve.factorize(sub, method="cholmod", ordering=o).solve(rhs)
+                  for key, o in (("nd", ordering), ("amd", None))}
+        monkeypatch.setattr(solve._CholmodLibrary, "load", classmethod(lambda cls: None))
+        through_cvxopt = {key: solve.factorize(sub, method="cholmod", ordering=o).solve(rhs)
+                          for key, o in (("nd", ordering), ("amd", None))}
+        for key in direct:
+            np.testing.assert_allclose(direct[key], reference, rtol=1e-10, atol=1e-13)
+            np.testing.assert_allclose(through_cvxopt[key], direct[key], rtol=1e-12, atol=1e-15)
+
+    @pytest.mark.skipif(not HAVE_CHOLMOD, reason="cvxopt (CHOLMOD, the 'fast' extra) is not installed")
+    def test_only_an_identity_permutation_is_marked_natural(self):
+        from cvxopt import cholmod, matrix as dense
+        graph = lognormal_graph(12, 10, [(1, 1), (10, 8)], seed=3)
+        sub = graph.laplacian()[1:, 1:]
+        n = sub.shape[0]
+        system = solve._cvxopt_lower(solve._lower_csc(sub))
+        saved = dict(cholmod.options)
+        cholmod.options.update(nmethods=1, postorder=False)
+        try:
+            shuffled = cholmod.symbolic(system, p=dense(np.arange(n)[::-1].copy(), tc="i"))
+            identity = cholmod.symbolic(system, p=dense(np.arange(n), tc="i"))
+        finally:
+            cholmod.options.clear()
+            cholmod.options.update(saved)
+        assert not solve._cholmod_mark_natural(shuffled, n)
+        assert solve._cholmod_size(shuffled, n)["ordering"] == "given"
+        assert solve._cholmod_mark_natural(identity, n)
+        assert solve._cholmod_size(identity, n)["ordering"] == "natural"
+        assert not solve._cholmod_mark_natural(identity, n)       # marked once: no longer "given"
+
+    @pytest.mark.skipif(not HAVE_CHOLMOD, reason="cvxopt (CHOLMOD, the 'fast' extra) is not installed")
+    @pytest.mark.parametrize("through_cvxopt", [False, True])
+    def test_cholmod_refuses_a_matrix_that_is_not_positive_definite(self, monkeypatch, through_cvxopt):
+        import scipy.sparse as sp
+        if through_cvxopt:
+            monkeypatch.setattr(solve._CholmodLibrary, "load", classmethod(lambda cls: None))
+        indefinite = sp.csr_array(np.array([[2.0, -3.0, 0.0], [-3.0, 2.0, -1.0], [0.0, -1.0, 2.0]]))
+        with pytest.raises(SolverError, match=r"direct factorisation \(cholmod\) failed: the matrix is not "
+                                              r"positive definite \(pivot 1\)"):
+            solve._cholmod_factor(solve._lower_csc(indefinite), ordered=True)
+
     def test_superlu_agrees_with_scipy_spsolve(self):
         # scipy's general sparse solver on the grounded Laplacian, no landflow ordering involved.
         import scipy.sparse.linalg as sla
@@ -295,6 +351,65 @@ def test_right_hand_sides_in_blocks_give_the_same_voltages(monkeypatch):
     np.testing.assert_array_equal(blocked, whole)
 
 
+def set_aside_every_factor(monkeypatch, graph):
+    """Make every direct factor count as filling the memory, so that ``graph``'s matrix goes to disk.
+
+    Returns a list that records, for each factorisation, whether the matrix was out of memory then.
+    """
+    from landflow.analyses import resistance
+    monkeypatch.setattr(resistance, "available_memory", lambda: 1e12)
+    monkeypatch.setattr(resistance, "SET_ASIDE_SHARE", 0.0)
+    seen = []
+    real = resistance.factorize
+
+    def factorize(matrix, **kwargs):
+        seen.append(graph.conductance is None)
+        return real(matrix, **kwargs)
+    monkeypatch.setattr(resistance, "factorize", factorize)
+    return seen
+
+
+class TestPatchVoltagesMemory:
+    @pytest.mark.parametrize("method", ["superlu"] + (["cholmod"] if HAVE_CHOLMOD else []))
+    def test_graph_set_aside_during_the_factorisation_changes_nothing(self, monkeypatch, method, caplog):
+        graph = lognormal_graph(30, 35, [(1, 1), (28, 3), (15, 15), (4, 30)], seed=4)
+        before = graph.conductance.copy()
+        expected = lf.patch_voltages(graph, method=method)
+        seen = set_aside_every_factor(monkeypatch, graph)
+        with caplog.at_level("INFO", logger="landflow"):
+            voltages = lf.patch_voltages(graph, method=method)
+        assert seen == [True]                   # the matrix was on disk while the factor was made
+        assert "set aside in" in caplog.text
+        np.testing.assert_array_equal(voltages.potential, expected.potential)
+        assert 0 < voltages.solvers[0].worst_residual < 1e-10            # checked after the release
+        for name in ("data", "indices", "indptr"):
+            np.testing.assert_array_equal(getattr(graph.conductance, name), getattr(before, name))
+
+    def test_graph_comes_back_when_a_solve_fails(self, monkeypatch):
+        graph = lognormal_graph(20, 20, [(1, 1), (18, 18)], seed=5)
+        seen = set_aside_every_factor(monkeypatch, graph)
+
+        def fail(self, b):
+            raise SolverError("stopped in the middle")
+        monkeypatch.setattr(solve.Solver, "_superlu_solve", fail)
+        with pytest.raises(SolverError, match="stopped in the middle"):
+            lf.patch_voltages(graph, method="superlu")
+        assert seen == [True]
+        assert graph.conductance is not None and graph.conductance.nnz > 0
+
+    def test_a_badly_solved_column_is_caught_once_the_factor_is_released(self, monkeypatch):
+        graph = lognormal_graph(25, 25, [(1, 1), (20, 3), (12, 22)], seed=6)
+        real = solve.Solver._superlu_solve
+
+        def one_bad_column(self, b):
+            x = real(self, b)
+            x[:, -1] *= 1.01
+            return x
+        monkeypatch.setattr(solve.Solver, "_superlu_solve", one_bad_column)
+        with pytest.raises(SolverError, match=r"direct solve reached relative residual .* above 1e-06"):
+            lf.patch_voltages(graph, method="superlu")
+
+
 class TestMemoryAwareChoice:
     def test_a_factor_that_would_not_fit_falls_back_to_multigrid_with_a_reason(self, caplog):
         need = solve.factor_bytes(1_000_000, "superlu")
@@ -322,7 +437,7 @@ class TestMemoryAwareChoice:
         assert record["factor_ordering"] == "given"
         sub = graph.laplacian()[1:, 1:]
         order = nested_dissection_order(graph)
-        factor, size = solve._cholmod_factor(solve._cholmod_system(sub), order[order != 0] - 1)
+        factor, size = solve._cholmod_factor(solve._lower_csc(sub, order[order != 0] - 1), ordered=True)
         assert size["nonzeros"] == record["factor_nonzeros"]
         stored = len(cholmod.getfactor(factor))
         assert size["nonzeros"] <= stored <= 2 * size["nonzeros"]

@@ -2,7 +2,11 @@
 
 from __future__ import annotations
 
+import contextlib
+import logging
+import tempfile
 from dataclasses import dataclass, field
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -10,7 +14,9 @@ import scipy.sparse as sp
 
 from ..errors import InputError
 from ..graph import nested_dissection_order
-from ..solve import available_memory, choose_method, direct_engine, factorize
+from ..solve import available_memory, choose_method, direct_engine, factor_bytes, factorize
+
+log = logging.getLogger("landflow")
 
 __all__ = ["PatchVoltages", "patch_voltages", "effective_resistance", "resistance_table"]
 
@@ -91,8 +97,9 @@ def patch_voltages(graph, *, method="auto", tolerance=1e-8, progress=None):
                          "Add patches or check the patch labels.")
     comp = graph.components
     comp_of_patch = comp[:k]
+    n_nodes = graph.n_nodes
     # np.zeros takes its pages from the system only as they are written: after the factorisation
-    potential = np.zeros((graph.n_nodes, k))
+    potential = np.zeros((n_nodes, k))
     order = None
     solvers = []
     grounded = [c for c in np.unique(comp_of_patch) if np.count_nonzero(comp_of_patch == c) >= 2]
@@ -115,39 +122,46 @@ def patch_voltages(graph, *, method="auto", tolerance=1e-8, progress=None):
         else:
             keep = np.flatnonzero(comp == c)
             keep = keep[keep != ground]
-            if engine == "cholmod":     # CHOLMOD permutes the matrix itself
+            if engine == "cholmod":     # CHOLMOD gets its lower triangle in that order (solve._lower_csc)
                 ordering = _positions(keep, order[(comp[order] == c) & (order != ground)])
         # the whole graph grounded at node 0, in natural order: a slice, without index arrays
-        sliced = keep.size == graph.n_nodes - 1 and ground == 0 and engine != "superlu"
+        sliced = keep.size == n_nodes - 1 and ground == 0 and engine != "superlu"
         rows = slice(1, None) if sliced else keep
         if progress:
             progress(f"solving component with {keep.size:,} unknowns and {members.size} patches")
-        # Every piece of a connected component less one node touches that node, so the system is grounded
-        # by construction and factorize need not look for loose pieces. The grounded matrix is passed as a
-        # temporary and the residuals come from the graph (product), so that factorize can let the matrix
-        # go once the engine has its own copy: the factor's peak comes without it.
-        solver = factorize(_grounded_matrix(graph, keep, sliced), method=wanted, tolerance=tolerance,
-                           n_rhs=members.size - 1, ordering=ordering, pieces_grounded=True,
-                           fallback=method == "auto", product=_grounded_product(graph, rows))
         position = _positions(keep, members[1:])
-        # Right-hand sides go in blocks of about RHS_BLOCK_VALUES numbers, so that the
-        # solver's temporary copies stay small next to the factor whatever k is (one column at a time
-        # from 16 million unknowns on). Column-major, as the direct engines take and give them.
-        width = max(1, RHS_BLOCK_VALUES // max(keep.size, 1))
-        for first in range(0, members.size - 1, width):
-            cols = np.arange(first, min(first + width, members.size - 1))
-            rhs = np.zeros((keep.size, cols.size), order="F")
-            rhs[position[cols], np.arange(cols.size)] = 1.0
-            solution = solver.solve(rhs)
-            targets = members[1 + cols]
-            if np.all(np.diff(targets) == 1):          # neighbouring columns: a slice, not an index array
-                targets = slice(int(targets[0]), int(targets[-1]) + 1)
-            if sliced or isinstance(targets, slice):     # at most one index array: plain indexing
-                potential[rows, targets] = solution
-            else:
-                potential[np.ix_(keep, targets)] = solution
-            del rhs, solution
-        solver.release()
+        # Every piece of a connected component less one node touches that node, so the system is grounded
+        # by construction and factorize need not look for loose pieces. The grounded matrix is handed over
+        # as factorize's only reference (popped from a list) and the residuals come from the graph
+        # (product), so that factorize can let the matrix go once the engine has its own copy: the
+        # factor's peak comes without it. The residuals are checked once the factor is released.
+        matrix = [_grounded_matrix(graph, keep, sliced)]
+        with _conductance_set_aside(graph, engine in ("superlu", "cholmod", "pardiso") and _tight(keep.size, engine)):
+            solver = factorize(matrix.pop(), method=wanted, tolerance=tolerance, n_rhs=members.size - 1,
+                               ordering=ordering, pieces_grounded=True, fallback=method == "auto",
+                               product=_grounded_product(graph, rows, n_nodes))
+            blocks = []
+            # Right-hand sides go in blocks of about RHS_BLOCK_VALUES numbers, so that the
+            # solver's temporary copies stay small next to the factor whatever k is (one column at a time
+            # from 16 million unknowns on). Column-major, as the direct engines take and give them.
+            width = max(1, RHS_BLOCK_VALUES // max(keep.size, 1))
+            for first in range(0, members.size - 1, width):
+                cols = np.arange(first, min(first + width, members.size - 1))
+                solution = solver.solve(_unit_currents(keep.size, position[cols]), check=False)
+                targets = members[1 + cols]
+                if np.all(np.diff(targets) == 1):          # neighbouring columns: a slice, not an index array
+                    targets = slice(int(targets[0]), int(targets[-1]) + 1)
+                if sliced or isinstance(targets, slice):     # at most one index array: plain indexing
+                    potential[rows, targets] = solution
+                else:
+                    potential[np.ix_(keep, targets)] = solution
+                blocks.append((cols, targets))
+                del solution
+            solver.release()
+        for cols, targets in blocks:
+            solver.check(np.asfortranarray(potential[rows, targets] if isinstance(targets, slice)
+                                           else potential[np.ix_(keep, targets)]),
+                         _unit_currents(keep.size, position[cols]))
         solvers.append(solver)
     return PatchVoltages(graph, potential, comp_of_patch, solvers)
 
@@ -212,7 +226,7 @@ def _grounded_matrix(graph, keep, sliced):
     return laplacian[1:, 1:] if sliced else _symmetric_submatrix(laplacian, keep)
 
 
-def _grounded_product(graph, rows):
+def _grounded_product(graph, rows, n_nodes):
     """x -> L[rows][:, rows] @ x (one column or several), from the graph's conductance: L x = C_x x - A x.
 
     The residual checks of the solves use it instead of the grounded matrix, which is then freed once
@@ -221,12 +235,65 @@ def _grounded_product(graph, rows):
     diagonal = graph.total_conductance
 
     def product(x):
-        full = np.zeros((graph.n_nodes,) + x.shape[1:])
+        full = np.zeros((n_nodes,) + x.shape[1:])
         full[rows] = x
         out = graph.conductance @ full
         np.subtract(diagonal.reshape((-1,) + (1,) * (x.ndim - 1)) * full, out, out=out)
         return out[rows]
     return product
+
+
+def _unit_currents(n, positions):
+    """Right-hand sides of unit current into the unknowns ``positions``, one column each (column-major)."""
+    rhs = np.zeros((n, len(positions)), order="F")
+    rhs[positions, np.arange(len(positions))] = 1.0
+    return rhs
+
+
+#: A direct factor expected to take more than this share of the memory available sets the graph's
+#: conductance matrix aside on disk while it is made and used (:func:`_conductance_set_aside`).
+SET_ASIDE_SHARE = 0.5
+
+
+def _tight(n_unknowns, engine):
+    """Whether the direct factor of ``n_unknowns`` is expected to take over SET_ASIDE_SHARE of the memory."""
+    memory = available_memory()
+    return memory is not None and factor_bytes(n_unknowns, engine) > SET_ASIDE_SHARE * memory
+
+
+@contextlib.contextmanager
+def _conductance_set_aside(graph, wanted=True):
+    """Keep the graph's conductance matrix in a temporary file, not in memory, inside the block.
+
+    For factors that fill most of the memory: on 16 million cells the matrix takes 1.7 GB beside a 12 GB
+    factor, and nothing needs it while the factor is made and used once the residual checks wait for the
+    factor's release. ``graph.conductance`` is None inside the block and is read back on leaving it, also
+    on an error. The file goes to the temporary folder (``TMPDIR``); where it cannot be written, the
+    matrix stays in memory and the reason is logged.
+    """
+    if not wanted:
+        yield
+        return
+    matrix = graph.conductance
+    with tempfile.TemporaryDirectory(prefix="landflow-graph-") as folder:
+        path = Path(folder) / "conductance.npz"
+        try:
+            np.savez(path, data=matrix.data, indices=matrix.indices, indptr=matrix.indptr)
+        except OSError as exc:
+            log.info("solver: the graph stays in memory during the factorisation: %s could not be written (%s)",
+                     path, exc)
+            yield
+            return
+        shape = matrix.shape
+        log.info("solver: graph's conductance matrix (%.1f GB) set aside in %s while the factor is in memory",
+                 (matrix.data.nbytes + matrix.indices.nbytes + matrix.indptr.nbytes) / 1e9, folder)
+        graph.conductance = matrix = None
+        try:
+            yield
+        finally:
+            with np.load(path) as arrays:
+                graph.conductance = sp.csr_array((arrays["data"], arrays["indices"], arrays["indptr"]),
+                                                 shape=shape)
 
 
 def _symmetric_submatrix(matrix, keep):
