@@ -648,8 +648,12 @@ def write_doc(results):
             r = results[name]
             body += crossover_table(r) if name == "crossover" else case_table(r)
         elif name in kept:
-            body += kept[name][:1] + ["", "(An earlier run, kept as it was: this invocation did not measure it "
-                                      "again. The packages installed then may differ from the machine line above.)"] + kept[name][1:]
+            note = ("(An earlier run, kept as it was: this invocation did not measure it again. The packages "
+                    "installed then may differ from the machine line above.)")
+            rest = [line for line in kept[name][1:] if line != note]       # noted once, however often kept
+            while rest and not rest[0].strip():
+                rest.pop(0)
+            body += kept[name][:1] + ["", note, ""] + rest
     body += targets_table(results)
     body.append(END)
     text = "\n".join(body)
