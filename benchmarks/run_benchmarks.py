@@ -148,8 +148,9 @@ def _load_system(folder):
     return lap, n, k
 
 
-def _factor(matrix, engine, ordering=None):
-    """(solve function, seconds) for a grounded SPD matrix, with scipy, cvxopt or pypardiso only."""
+def _factor(matrix, engine):
+    """(solve function, seconds) for a grounded SPD matrix, with scipy, cvxopt or pypardiso (for CHOLMOD its
+    lower triangle, from landflow.solve._lower_csc)."""
     import scipy.sparse as sp
     import scipy.sparse.linalg as sla
     start = time.perf_counter()
@@ -170,25 +171,17 @@ def _factor(matrix, engine, ordering=None):
             b2 = b.reshape(b.shape[0], -1)
             return np.column_stack([ml.solve(col, tol=1e-8, accel="cg", maxiter=500) for col in b2.T]).reshape(b.shape)
         return solve, time.perf_counter() - start
-    if engine == "cholmod":                     # in the given order, sparse right-hand sides: as landflow
-        from cvxopt import cholmod, matrix as dense, spmatrix
-        lower = sp.tril(matrix, format="csc")
-        columns = np.repeat(np.arange(lower.shape[1]), np.diff(lower.indptr))
-        system = spmatrix(dense(lower.data), dense(lower.indices.astype(np.int64)), dense(columns), lower.shape)
-        del lower, columns
-        if ordering is not None:
-            cholmod.options["nmethods"] = 1
-            factor = cholmod.symbolic(system, p=dense(ordering.astype(np.int64), tc="i"))
-        else:
-            factor = cholmod.symbolic(system)
-        cholmod.numeric(system, factor)
-        del system
+    if engine == "cholmod":
+        # As landflow calls it: the lower triangle in landflow's order (made before the clock starts, like
+        # the order itself), analysed by cvxopt in that order, factorised on the triangle's own arrays and
+        # solved in one block by CHOLMOD's C interface (landflow.solve._cholmod_factor, _CholmodLibrary).
+        from landflow.solve import _CholmodLibrary, _cholmod_factor, _cholmod_solve
+        factor, _ = _cholmod_factor(matrix, ordered=True)
+        library = _CholmodLibrary.load()
         def solve(b):
-            b2 = b.reshape(b.shape[0], -1)
-            rows, cols = np.nonzero(b2)
-            x = cholmod.spsolve(factor, spmatrix(dense(b2[rows, cols]), dense(rows.astype(np.int64)),
-                                                 dense(cols.astype(np.int64)), b2.shape))
-            return np.asarray(dense(x)).reshape(b.shape)
+            if library is None:
+                return _cholmod_solve(factor, b)
+            return library.solve(factor, b.reshape(b.shape[0], -1)).reshape(b.shape)
         return solve, time.perf_counter() - start
     from threadpoolctl import threadpool_limits
     spec = "NATURAL" if engine == "superlu-nd" else "MMD_AT_PLUS_A"
@@ -201,24 +194,25 @@ def _factor(matrix, engine, ordering=None):
 
 def worker_bare(folder, engine):
     """One factorisation plus k - 1 solves of the grounded system; scipy (or pypardiso) only."""
+    import scipy.sparse as sp
     lap, n, k = _load_system(folder)
-    ordering = None
-    if engine == "superlu-nd":                     # same ordering as landflow, applied untimed
+    if engine in ("superlu-nd", "cholmod"):        # same ordering as landflow, applied untimed
         order = np.load(Path(folder) / "order.npy")
         keep = order[order != 0]
     else:
         keep = np.arange(1, n)
-        if engine == "cholmod":                    # landflow's order, given to CHOLMOD
-            order = np.load(Path(folder) / "order.npy")
-            ordering = order[order != 0] - 1
     sub = lap[keep][:, keep]
     where = np.empty(n, np.int64)
     where[keep] = np.arange(keep.size)
     rhs = np.zeros((keep.size, k - 1), order="F")
     rhs[where[np.arange(1, k)], np.arange(k - 1)] = 1.0
     del lap
+    system = sub
+    if engine == "cholmod":                        # the lower triangle CHOLMOD reads, also untimed
+        from landflow.solve import _lower_csc
+        system = _lower_csc(sp.csr_array(sub))
     start = time.perf_counter()
-    solve, factor_seconds = _factor(sub, engine, ordering)
+    solve, factor_seconds = _factor(system, engine)
     t = time.perf_counter()
     x = solve(rhs)
     solve_seconds = time.perf_counter() - t
@@ -235,7 +229,7 @@ def worker_naive(folder, engine, n_pairs):
     upper = sp.triu(lap, k=1, format="coo")
     ei, ej, ec = upper.row, upper.col, -upper.data
     pairs = [(a, b) for a in range(k) for b in range(a + 1, k)][:n_pairs]
-    order = np.load(Path(folder) / "order.npy") if engine == "superlu-nd" else None
+    order = np.load(Path(folder) / "order.npy") if engine in ("superlu-nd", "cholmod") else None
     flow = np.zeros(n)
     start = time.perf_counter()
     for a, b in pairs:
@@ -245,6 +239,9 @@ def worker_naive(folder, engine, n_pairs):
         where[keep] = np.arange(keep.size)
         rhs = np.zeros(keep.size)
         rhs[where[a]] = 1.0
+        if engine == "cholmod":
+            from landflow.solve import _lower_csc
+            sub = _lower_csc(sp.csr_array(sub))
         solve, _ = _factor(sub, engine)
         v = np.zeros(n)
         v[keep] = solve(rhs)

@@ -347,7 +347,10 @@ class Solver:
             return self._lu.solve(b)
 
     def _cholmod_solve(self, b):
-        return _cholmod_solve(self._factor, b)
+        library = _CholmodLibrary.load()
+        if library is None:
+            return _cholmod_solve(self._factor, b)
+        return library.solve(self._factor, b.reshape(b.shape[0], -1)).reshape(b.shape)
 
     def _cg(self, b):
         residuals = []
@@ -636,10 +639,19 @@ class _CholmodLibrary:
         import ctypes
 
         self._lib = lib
-        for name in ("cholmod_l_start", "cholmod_l_finish", "cholmod_l_factorize"):
+        for name in ("cholmod_l_start", "cholmod_l_finish", "cholmod_l_factorize", "cholmod_l_free_dense"):
             getattr(lib, name).restype = ctypes.c_int
         lib.cholmod_l_start.argtypes = lib.cholmod_l_finish.argtypes = [ctypes.c_void_p]
         lib.cholmod_l_factorize.argtypes = [ctypes.c_void_p, ctypes.c_void_p, ctypes.c_void_p]
+        lib.cholmod_l_solve.restype = ctypes.c_void_p
+        lib.cholmod_l_solve.argtypes = [ctypes.c_int, ctypes.c_void_p, ctypes.c_void_p, ctypes.c_void_p]
+        lib.cholmod_l_free_dense.argtypes = [ctypes.c_void_p, ctypes.c_void_p]
+
+        class Dense(ctypes.Structure):                  # cholmod_dense
+            _fields_ = [("nrow", ctypes.c_size_t), ("ncol", ctypes.c_size_t), ("nzmax", ctypes.c_size_t),
+                        ("d", ctypes.c_size_t), ("x", ctypes.c_void_p), ("z", ctypes.c_void_p),
+                        ("xtype", ctypes.c_int), ("dtype", ctypes.c_int)]
+        self._dense = Dense
 
         class Sparse(ctypes.Structure):                 # cholmod_sparse
             _fields_ = [("nrow", ctypes.c_size_t), ("ncol", ctypes.c_size_t), ("nzmax", ctypes.c_size_t),
@@ -740,6 +752,38 @@ class _CholmodLibrary:
             raise SolverError("direct factorisation (cholmod) failed: CHOLMOD ran out of memory or refused "
                               "the matrix; use solver method 'multigrid' for a system this large.")
         return int(ctypes.c_size_t.from_address(address + ctypes.sizeof(ctypes.c_size_t)).value)
+
+    def solve(self, factor, b):
+        """x = A^-1 b for a block of columns b (n, m), with one call of ``cholmod_l_solve``.
+
+        CHOLMOD solves the columns together (supernodal block solves with matrix-matrix products), where
+        cvxopt's dense solve goes one column at a time and its sparse solve in blocks of four.
+        """
+        import ctypes
+
+        n, m = b.shape
+        found = _factor_struct(factor, n)
+        if found is None:
+            raise SolverError("direct solve (cholmod): the factor does not look as expected; "
+                              "use solver method 'superlu'.")
+        rhs = np.asfortranarray(b, dtype=np.float64)
+        block = self._dense(nrow=n, ncol=m, nzmax=n * m, d=n, x=rhs.ctypes.data, z=None, xtype=1, dtype=0)
+        common = self._start()
+        ctypes.c_int.from_address(ctypes.addressof(common) + self._PRINT_OFFSET).value = 0
+        try:
+            solution = self._lib.cholmod_l_solve(0, found[0], ctypes.byref(block), common)   # CHOLMOD_A
+            if not solution:
+                raise SolverError("direct solve (cholmod) failed: CHOLMOD ran out of memory; "
+                                  "solve fewer right-hand sides at once or use solver method 'multigrid'.")
+            result = self._dense.from_address(solution)
+            if (result.nrow, result.ncol, result.d) != (n, m, n):
+                raise SolverError("direct solve (cholmod): CHOLMOD returned a block of another shape.")
+            x = np.ctypeslib.as_array((ctypes.c_double * (n * m)).from_address(result.x)).reshape((n, m), order="F").copy(order="F")
+            handle = ctypes.c_void_p(solution)
+            self._lib.cholmod_l_free_dense(ctypes.byref(handle), common)
+        finally:
+            self._lib.cholmod_l_finish(common)
+        return x
 
 
 _SEED_LOCK = threading.Lock()
