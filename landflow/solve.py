@@ -52,7 +52,7 @@ from .errors import SolverError
 log = logging.getLogger("landflow")
 
 __all__ = ["factorize", "Solver", "METHODS", "DIRECT_MAX_UNKNOWNS", "DIRECT_ALWAYS_UNKNOWNS", "DIRECT_MIN_RHS",
-           "choose_method", "direct_engine", "factor_bytes", "available_memory"]
+           "choose_method", "direct_engine", "factor_bytes", "available_memory", "grounded_lower"]
 
 METHODS = ("auto", "direct", "multigrid", "superlu", "pardiso", "cholmod")
 
@@ -473,6 +473,46 @@ def _cholmod_factor(lower, *, ordered=False, memory_share=None):
     return factor, size
 
 
+def grounded_lower(adjacency, diagonal, nodes):
+    """The lower triangle of ``L[nodes][:, nodes]`` with ``L = diag(diagonal) - adjacency``, in ``nodes``' order.
+
+    For CHOLMOD (:func:`factorize`'s ``lower``), straight from a graph: ``adjacency`` is its symmetric
+    CSR conductance matrix (no self-loops), ``diagonal`` its total conductance per node, and ``nodes`` the
+    unknowns in elimination order (every other node is grounded). Unknown j of the triangle is node
+    ``nodes[j]``. Column j holds row ``nodes[j]``'s entries at unknowns after j (the matrix is symmetric),
+    so one row gather of ``adjacency`` gives all columns: the Laplacian, its grounded submatrix and their
+    permuted copies are never formed. CSC with sorted 64-bit indices, as CHOLMOD's long-integer interface
+    reads them in place.
+    """
+    nodes = np.asarray(nodes, dtype=np.int64)
+    n = nodes.size
+    position = np.full(adjacency.shape[0], -1, dtype=np.int64)     # -1: grounded
+    position[nodes] = np.arange(n)
+    rows = adjacency[nodes]                                         # row j is node nodes[j]
+    columns = position[rows.indices]
+    del position
+    after = columns > np.repeat(np.arange(n, dtype=np.int64), np.diff(rows.indptr))
+    kept = np.zeros(rows.nnz + 1, dtype=np.int64)
+    np.cumsum(after, out=kept[1:])
+    indptr = np.arange(n + 1, dtype=np.int64)                       # one diagonal entry per column ...
+    indptr += kept[rows.indptr]                                     # ... and the kept entries before it
+    del kept
+    off = np.ones(indptr[-1], dtype=bool)
+    off[indptr[:-1]] = False
+    indices = np.empty(indptr[-1], dtype=np.int64)
+    data = np.empty(indptr[-1], dtype=np.float64)
+    indices[indptr[:-1]] = np.arange(n)
+    data[indptr[:-1]] = diagonal[nodes]
+    indices[off] = columns[after]
+    del columns
+    data[off] = rows.data[after]
+    np.negative(data, out=data, where=off)
+    del rows, after, off
+    lower = sp.csc_array((data, indices, indptr), shape=(n, n))
+    lower.sort_indices()
+    return lower
+
+
 def _lower_csc(matrix, ordering=None):
     """The lower triangle of a symmetric CSR matrix (``ordering``: of ``matrix[ordering][:, ordering]``).
 
@@ -809,7 +849,7 @@ def _multigrid_hierarchy(matrix):
 
 
 def factorize(matrix, *, method="auto", tolerance=1e-8, n_rhs=1, ordering=None, pieces_grounded=False,
-              fallback=None, product=None):
+              fallback=None, product=None, lower=None):
     """Prepare a symmetric positive definite sparse system for repeated solves.
 
     Parameters
@@ -840,6 +880,10 @@ def factorize(matrix, *, method="auto", tolerance=1e-8, n_rhs=1, ordering=None, 
         The caller knows that every connected piece of the system has a row tied to ground (as for a
         connected graph with one node grounded), which skips the search for loose pieces (a
         connected-components pass); the diagonal is checked all the same.
+    lower : sparse CSC array, optional
+        The system given as its lower triangle in ``ordering``'s order (from :func:`grounded_lower`), with
+        ``matrix`` None: what CHOLMOD reads, so that the whole matrix is never formed. The other engines
+        get the whole matrix back from it.
 
     Returns
     -------
@@ -864,8 +908,9 @@ def factorize(matrix, *, method="auto", tolerance=1e-8, n_rhs=1, ordering=None, 
         raise SolverError(f"tolerance must be a relative residual between 0 and 1, such as 1e-8; got {tolerance!r}.")
     if fallback is None:
         fallback = method == "auto"
+    n = (matrix if lower is None else lower).shape[0]
     if method == "auto":
-        method = choose_method(matrix.shape[0], n_rhs, memory=available_memory())
+        method = choose_method(n, n_rhs, memory=available_memory())
     engine = None
     if method == "direct":
         engine = direct_engine()
@@ -875,20 +920,26 @@ def factorize(matrix, *, method="auto", tolerance=1e-8, n_rhs=1, ordering=None, 
             package = {"cholmod": "cvxopt", "pardiso": "pypardiso (x86-64 only)"}[engine]
             raise SolverError(f"solver method '{engine}' needs the optional package {package} "
                               "(pip install 'landflow[fast]'); use 'direct' or 'superlu' instead.")
-    if not isinstance(matrix, sp.csr_array):
-        matrix = sp.csr_array(matrix)
-    _check_grounded(matrix, pieces=not pieces_grounded)
+    permutation = None
+    if ordering is not None:
+        ordering = _check_ordering(ordering, n)
+        if not np.array_equal(ordering, np.arange(n)):
+            permutation = ordering
+    if lower is not None and (engine != "cholmod" or not pieces_grounded or product is None):
+        matrix = _full_from_lower(lower, permutation)
+    if matrix is not None:
+        if not isinstance(matrix, sp.csr_array):
+            matrix = sp.csr_array(matrix)
+        _check_grounded(matrix, pieces=not pieces_grounded)
+    else:
+        _check_diagonal(lower.data[lower.indptr[:-1]], permutation)     # sorted columns start at their diagonal
     if engine != "cholmod":
         return Solver(matrix, method, tolerance, engine=engine, ordering=ordering, product=product)
     # CHOLMOD reads the lower triangle (in the given order). With ``product`` nothing else needs the
     # matrix, so this function's reference goes before the numeric phase: when the caller passed the
     # matrix as a temporary, its memory is then free for the factor (1.7 GB on 16 million cells).
-    permutation = None
-    if ordering is not None:
-        ordering = _check_ordering(ordering, matrix.shape[0])
-        if not np.array_equal(ordering, np.arange(ordering.size)):
-            permutation = ordering
-    lower = _lower_csc(matrix, permutation)
+    if lower is None:
+        lower = _lower_csc(matrix, permutation)
     if product is not None:
         del matrix
         matrix = None
@@ -918,15 +969,10 @@ def _check_grounded(matrix, pieces=True):
     """
     from scipy.sparse.csgraph import connected_components
 
-    n = matrix.shape[0]
-    if n == 0:
+    if matrix.shape[0] == 0:
         return
     diagonal = matrix.diagonal()
-    if np.any(diagonal <= 0) or not np.all(np.isfinite(diagonal)):
-        row = int(np.flatnonzero(~(diagonal > 0))[0]) if np.any(~(diagonal > 0)) else \
-            int(np.flatnonzero(~np.isfinite(diagonal))[0])
-        raise SolverError(f"the system's unknown {row} has diagonal {float(diagonal[row])!r}; a grounded Laplacian "
-                          f"needs a positive, finite diagonal. {_SINGULAR}")
+    _check_diagonal(diagonal)
     if not pieces:
         return
     off_diagonal = np.add.reduceat(np.abs(matrix.data), matrix.indptr[:-1]) - diagonal   # rows are never empty
@@ -942,6 +988,19 @@ def _check_grounded(matrix, pieces=True):
         raise SolverError(f"{loose.size} connected piece(s) of the system ({int(sizes.sum())} unknowns, the "
                           f"first being unknown {int(np.flatnonzero(piece == loose[0])[0])}) have no tie to "
                           f"ground, so the system has no unique solution. {_SINGULAR}")
+
+
+def _check_diagonal(diagonal, ordering=None):
+    """Refuse a diagonal entry that is not positive and finite (no grounded Laplacian has one).
+
+    ``ordering``: the diagonal is in that order (entry j is unknown ``ordering[j]``), undone in the message.
+    """
+    bad = ~((diagonal > 0) & np.isfinite(diagonal))
+    if bad.any():
+        at = int(np.flatnonzero(bad)[0])
+        row = at if ordering is None else int(ordering[at])
+        raise SolverError(f"the system's unknown {row} has diagonal {float(diagonal[at])!r}; a grounded Laplacian "
+                          f"needs a positive, finite diagonal. {_SINGULAR}")
 
 
 def _point_pypardiso_at_mkl():

@@ -57,6 +57,48 @@ needs_pardiso = pytest.mark.skipif(not solve_module._installed("pardiso"),
                                    reason="pypardiso (the 'fast' extra) is not installed")
 
 
+class TestLowerTriangle:
+    """factorize's ``lower``: the system as the lower triangle that CHOLMOD reads, made from a graph."""
+
+    @pytest.fixture(scope="class")
+    def graph(self):
+        values = np.random.default_rng(7).lognormal(0.0, 1.0, size=(30, 40))
+        labels = np.zeros(values.shape, dtype=np.int64)
+        labels[2, 2], labels[25, 30], labels[12, 18] = 1, 2, 3
+        return lf.build_graph(lf.Grid.from_array(values), labels)
+
+    def test_equals_scipys_lower_triangle_of_the_grounded_submatrix(self, graph):
+        # against scipy's own indexing and tril of L[nodes][:, nodes], in a shuffled elimination order
+        nodes = np.random.default_rng(1).permutation(np.arange(1, graph.n_nodes))
+        lower = solve_module.grounded_lower(graph.conductance, graph.total_conductance, nodes)
+        expected = sp.csc_array(sp.tril(graph.laplacian()[nodes][:, nodes]))
+        expected.sort_indices()
+        assert lower.has_sorted_indices and lower.indices.dtype == np.int64
+        np.testing.assert_array_equal(lower.indptr, expected.indptr)
+        np.testing.assert_array_equal(lower.indices, expected.indices)
+        np.testing.assert_array_equal(lower.data, expected.data)
+
+    @pytest.mark.parametrize("engine", ["superlu", "multigrid"])
+    def test_a_system_given_as_its_lower_triangle_solves_as_the_matrix_does(self, graph, engine):
+        # the engines that need the whole matrix get it back from the triangle, in the caller's order
+        keep = np.arange(1, graph.n_nodes)
+        ordering = np.random.default_rng(2).permutation(keep.size)
+        lower = solve_module.grounded_lower(graph.conductance, graph.total_conductance, keep[ordering])
+        matrix = graph.laplacian()[1:, 1:]
+        b = _rhs(keep.size)
+        x = factorize(None, lower=lower, ordering=ordering, method=engine, tolerance=1e-12).solve(b)
+        np.testing.assert_allclose(x, sp.linalg.spsolve(sp.csc_array(matrix), b), rtol=1e-9)
+
+    def test_a_bad_diagonal_is_named_in_the_callers_numbering(self, graph):
+        keep = np.arange(1, graph.n_nodes)
+        ordering = keep[::-1] - 1
+        diagonal = graph.total_conductance.copy()
+        diagonal[5] = np.nan                                # node 5 is unknown 4
+        lower = solve_module.grounded_lower(graph.conductance, diagonal, keep[ordering])
+        with pytest.raises(lf.SolverError, match=r"unknown 4 has diagonal nan; a grounded Laplacian needs"):
+            factorize(None, lower=lower, ordering=ordering, method="superlu")
+
+
 class TestFailures:
     @pytest.mark.parametrize("engine", ["superlu", "multigrid", pytest.param("pardiso", marks=needs_pardiso)])
     def test_an_isolated_node_is_refused_before_factorising(self, engine):

@@ -5,6 +5,8 @@ import itertools
 import networkx as nx
 import numpy as np
 import pytest
+import scipy.sparse as sp
+import scipy.sparse.linalg as spla
 
 import landflow as lf
 from landflow import solve
@@ -113,6 +115,27 @@ class TestBackendsAgree:
         b = lf.patch_voltages(graph, method="cholmod")
         assert len(b.solvers) == 2
         np.testing.assert_allclose(lf.effective_resistance(b), lf.effective_resistance(a), rtol=1e-10)
+
+    @pytest.mark.skipif(not HAVE_CHOLMOD, reason="cvxopt (CHOLMOD, the 'fast' extra) is not installed")
+    def test_cholmod_on_a_lower_triangle_alone(self):
+        # the route of patch_voltages: no whole matrix at all, the residuals from a product
+        graph = lognormal_graph(40, 30, [(2, 2), (35, 25)], seed=4)
+        sub = graph.laplacian()[1:, 1:]
+        ordering = np.random.default_rng(3).permutation(sub.shape[0])
+        rhs = np.zeros((sub.shape[0], 2))
+        rhs[[10, 700], [0, 1]] = 1.0
+
+        def triangle(diagonal):
+            return solve.grounded_lower(graph.conductance, diagonal, ordering + 1)
+        solver = solve.factorize(None, lower=triangle(graph.total_conductance), ordering=ordering,
+                                 method="cholmod", pieces_grounded=True, product=sub.__matmul__)
+        assert solver.matrix is None
+        np.testing.assert_allclose(solver.solve(rhs), spla.spsolve(sp.csc_array(sub), rhs), rtol=1e-10)
+        diagonal = graph.total_conductance.copy()
+        diagonal[ordering[7] + 1] = 0.0
+        with pytest.raises(lf.SolverError, match=rf"unknown {ordering[7]} has diagonal 0\.0"):
+            solve.factorize(None, lower=triangle(diagonal), ordering=ordering, method="cholmod",
+                            pieces_grounded=True, product=sub.__matmul__)
 
     @pytest.mark.skipif(not HAVE_CHOLMOD, reason="cvxopt (CHOLMOD, the 'fast' extra) is not installed")
     def test_cholmod_dense_and_sparse_right_hand_sides_agree(self):

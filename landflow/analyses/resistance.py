@@ -14,7 +14,7 @@ import scipy.sparse as sp
 
 from ..errors import InputError
 from ..graph import nested_dissection_order
-from ..solve import available_memory, choose_method, direct_engine, factor_bytes, factorize
+from ..solve import available_memory, choose_method, direct_engine, factor_bytes, factorize, grounded_lower
 
 log = logging.getLogger("landflow")
 
@@ -116,14 +116,15 @@ def patch_voltages(graph, *, method="auto", tolerance=1e-8, progress=None):
             # SuperLU's own minimum-degree ordering on a grid, and CHOLMOD's symbolic analysis
             # is faster than with its AMD ordering (docs/performance.md).
             order = nested_dissection_order(graph)
+        eliminated = None if order is None else order[(comp[order] == c) & (order != ground)]
         if engine == "superlu":         # SuperLU gets the matrix already in that order
-            keep = order[(comp[order] == c) & (order != ground)]
+            keep = eliminated
             ordering = np.arange(keep.size)
         else:
             keep = np.flatnonzero(comp == c)
             keep = keep[keep != ground]
-            if engine == "cholmod":     # CHOLMOD gets its lower triangle in that order (solve._lower_csc)
-                ordering = _positions(keep, order[(comp[order] == c) & (order != ground)])
+            if engine == "cholmod":     # CHOLMOD gets the lower triangle in that order, made from the graph
+                ordering = _positions(keep, eliminated)
         # the whole graph grounded at node 0, in natural order: a slice, without index arrays
         sliced = keep.size == n_nodes - 1 and ground == 0 and engine != "superlu"
         rows = slice(1, None) if sliced else keep
@@ -132,14 +133,20 @@ def patch_voltages(graph, *, method="auto", tolerance=1e-8, progress=None):
         position = _positions(keep, members[1:])
         # Every piece of a connected component less one node touches that node, so the system is grounded
         # by construction and factorize need not look for loose pieces. The grounded matrix is handed over
-        # as factorize's only reference (popped from a list) and the residuals come from the graph
+        # as factorize's only reference (popped from a dict) and the residuals come from the graph
         # (product), so that factorize can let the matrix go once the engine has its own copy: the
         # factor's peak comes without it. The residuals are checked once the factor is released.
-        matrix = [_grounded_matrix(graph, keep, sliced)]
+        # CHOLMOD gets the lower triangle in elimination order instead, made from the graph's rows
+        # (solve.grounded_lower): no Laplacian, grounded submatrix or permuted copy is formed.
+        if engine == "cholmod":
+            system = {"matrix": None, "lower": grounded_lower(graph.conductance, graph.total_conductance, eliminated)}
+        else:
+            system = {"matrix": _grounded_matrix(graph, keep, sliced), "lower": None}
+        del eliminated
         with _conductance_set_aside(graph, engine in ("superlu", "cholmod", "pardiso") and _tight(keep.size, engine)):
-            solver = factorize(matrix.pop(), method=wanted, tolerance=tolerance, n_rhs=members.size - 1,
-                               ordering=ordering, pieces_grounded=True, fallback=method == "auto",
-                               product=_grounded_product(graph, rows, n_nodes))
+            solver = factorize(system.pop("matrix"), lower=system.pop("lower"), method=wanted, tolerance=tolerance,
+                               n_rhs=members.size - 1, ordering=ordering, pieces_grounded=True,
+                               fallback=method == "auto", product=_grounded_product(graph, rows, n_nodes))
             blocks = []
             # Right-hand sides go in blocks of about RHS_BLOCK_VALUES numbers, so that the
             # solver's temporary copies stay small next to the factor whatever k is (one column at a time
