@@ -186,9 +186,16 @@ def _factor(matrix, engine):
     from threadpoolctl import threadpool_limits
     spec = "NATURAL" if engine == "superlu-nd" else "MMD_AT_PLUS_A"
     lu = sla.splu(matrix.tocsc(), permc_spec=spec, diag_pivot_thresh=0.0, options={"SymmetricMode": True})
-    def solve(b):               # one BLAS thread, as landflow's SuperLU solves (landflow.solve._one_blas_thread)
+    from landflow.solve import _solve_in_parts
+
+    def part_solve(part, out):
+        out[...] = lu.solve(part)
+
+    def solve(b):               # one BLAS thread, as landflow's SuperLU solves (landflow.solve.one_blas_thread) ...
         with threadpool_limits(limits=1, user_api="blas"):
-            return lu.solve(b)
+            if engine == "superlu-mmd":         # ... scipy alone: one block
+                return lu.solve(b)
+            return _solve_in_parts(part_solve, b)   # ... landflow's order: the block's columns shared among the cores
     return solve, time.perf_counter() - start
 
 

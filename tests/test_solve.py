@@ -47,6 +47,29 @@ class TestBackendsAgree:
         x = factorize(grounded, method="direct").solve(b)
         assert np.linalg.norm(grounded @ x - b) <= 1e-10 * np.linalg.norm(b)
 
+    @pytest.mark.parametrize("threads, columns, parts", [(2, 7, [7]), (2, 9, [9]), (2, 19, [8, 11]), (3, 19, [8, 11]),
+                                                         (2, 32, [16, 16]), (4, 24, [8, 8, 8])])
+    def test_superlu_columns_shared_among_threads_give_the_one_thread_result(self, grounded, threads, columns,
+                                                                            parts, monkeypatch):
+        # the block's columns go to several threads in parts that start at multiples of eight columns, so
+        # each column is solved as in the whole block: the same numbers to the last bit, whatever the cores
+        b = _rhs(grounded.shape[0], columns)
+        solver = factorize(grounded, method="superlu")
+        monkeypatch.setattr(solve_module, "compute_threads", lambda: 1)
+        alone = solver.solve(b)
+        seen = []
+        real = solver._lu
+
+        class Recording:
+            def solve(self, part):
+                seen.append(part.shape[1])
+                return real.solve(part)
+        monkeypatch.setattr(solver, "_lu", Recording())
+        monkeypatch.setattr(solve_module, "compute_threads", lambda: threads)
+        shared = solver.solve(b)
+        assert sorted(seen) == sorted(parts)
+        np.testing.assert_array_equal(shared, alone)
+
     def test_auto_picks_direct_up_to_the_limit(self, grounded):
         assert choose_method(DIRECT_MAX_UNKNOWNS, n_rhs=DIRECT_MIN_RHS, engine="superlu") == "direct"
         assert choose_method(DIRECT_MAX_UNKNOWNS + 1, n_rhs=DIRECT_MIN_RHS, engine="superlu") == "multigrid"
@@ -57,15 +80,28 @@ needs_pardiso = pytest.mark.skipif(not solve_module._installed("pardiso"),
                                    reason="pypardiso (the 'fast' extra) is not installed")
 
 
+@pytest.fixture(scope="module")
+def graph():
+    """A 30 x 40 log-normal landscape with three one-cell patches."""
+    values = np.random.default_rng(7).lognormal(0.0, 1.0, size=(30, 40))
+    labels = np.zeros(values.shape, dtype=np.int64)
+    labels[2, 2], labels[25, 30], labels[12, 18] = 1, 2, 3
+    return lf.build_graph(lf.Grid.from_array(values), labels)
+
+
 class TestLowerTriangle:
     """factorize's ``lower``: the system as the lower triangle that CHOLMOD reads, made from a graph."""
 
-    @pytest.fixture(scope="class")
-    def graph(self):
-        values = np.random.default_rng(7).lognormal(0.0, 1.0, size=(30, 40))
-        labels = np.zeros(values.shape, dtype=np.int64)
-        labels[2, 2], labels[25, 30], labels[12, 18] = 1, 2, 3
-        return lf.build_graph(lf.Grid.from_array(values), labels)
+    def test_whole_matrix_equals_scipys_grounded_submatrix(self, graph):
+        # against scipy's own indexing of L[nodes][:, nodes], in a shuffled elimination order
+        nodes = np.random.default_rng(3).permutation(np.arange(1, graph.n_nodes))
+        matrix = solve_module.grounded_matrix(graph.conductance, graph.total_conductance, nodes)
+        expected = sp.csr_array(graph.laplacian()[nodes][:, nodes])
+        expected.sort_indices()
+        assert matrix.format == "csr" and matrix.has_sorted_indices
+        np.testing.assert_array_equal(matrix.indptr, expected.indptr)
+        np.testing.assert_array_equal(matrix.indices, expected.indices)
+        np.testing.assert_array_equal(matrix.data, expected.data)
 
     def test_equals_scipys_lower_triangle_of_the_grounded_submatrix(self, graph):
         # against scipy's own indexing and tril of L[nodes][:, nodes], in a shuffled elimination order
@@ -133,7 +169,7 @@ class TestFailures:
         good = solver.solve(b)
         wrong = good.copy()
         wrong[:, 1] *= 1.01                                   # one bad column among good ones
-        monkeypatch.setattr(solver, "_lu" if method == "superlu" else "_ml", _Returns(wrong, method))
+        monkeypatch.setattr(solver, "_lu" if method == "superlu" else "_ml", _Returns(wrong, method, b))
         fix = "singular or nearly so" if method == "superlu" else "Try solver method 'direct'"
         with pytest.raises(lf.SolverError, match=rf"solve reached relative residual .*{fix}") as err:
             solver.solve(b)
@@ -198,12 +234,14 @@ class TestRecord:
 class _Returns:
     """Stands in for a factor or hierarchy that returns a given (wrong) solution."""
 
-    def __init__(self, x, method):
-        self.x, self.method, self.column = x, method, 0
+    def __init__(self, x, method, b):
+        self.x, self.method, self.b, self.column = x, method, b, 0
 
     def solve(self, b, **kwargs):
-        if self.method == "superlu":
-            return self.x
+        if self.method == "superlu":     # the columns of x for the columns of b asked for (the solver may split b)
+            b2 = b.reshape(b.shape[0], -1)
+            return self.x[:, [next(j for j in range(self.b.shape[1]) if np.array_equal(self.b[:, j], col))
+                              for col in b2.T]].reshape(b.shape)
         column = self.x[:, self.column % self.x.shape[1]]
         self.column += 1
         kwargs.get("residuals", []).extend([1.0, 0.0])

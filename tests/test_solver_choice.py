@@ -414,7 +414,7 @@ class TestPatchVoltagesMemory:
 
         def fail(self, b):
             raise SolverError("stopped in the middle")
-        monkeypatch.setattr(solve.Solver, "_superlu_solve", fail)
+        monkeypatch.setattr(solve.Solver, "_direct_solve", fail)
         with pytest.raises(SolverError, match="stopped in the middle"):
             lf.patch_voltages(graph, method="superlu")
         assert seen == [True]
@@ -422,13 +422,13 @@ class TestPatchVoltagesMemory:
 
     def test_a_badly_solved_column_is_caught_once_the_factor_is_released(self, monkeypatch):
         graph = lognormal_graph(25, 25, [(1, 1), (20, 3), (12, 22)], seed=6)
-        real = solve.Solver._superlu_solve
+        real = solve.Solver._direct_solve
 
         def one_bad_column(self, b):
             x = real(self, b)
             x[:, -1] *= 1.01
             return x
-        monkeypatch.setattr(solve.Solver, "_superlu_solve", one_bad_column)
+        monkeypatch.setattr(solve.Solver, "_direct_solve", one_bad_column)
         with pytest.raises(SolverError, match=r"direct solve reached relative residual .* above 1e-06"):
             lf.patch_voltages(graph, method="superlu")
 
