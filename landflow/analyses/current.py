@@ -2,10 +2,13 @@
 
 from __future__ import annotations
 
+import threading
+from concurrent.futures import ThreadPoolExecutor
+
 import numpy as np
 
 from ..errors import InputError
-from ..solve import one_blas_thread
+from ..solve import compute_threads, one_blas_thread
 
 __all__ = ["edge_current", "pair_current", "current_density", "edge_current_density", "pair_weights"]
 
@@ -155,17 +158,38 @@ def _edge_sums(voltages, w, i, j, c, *, progress=None):
     groups = _product_groups(voltages.component_of_patch, w)
     pairs_of = [(a, np.flatnonzero(w[a, a + 1:]) + a + 1) for a in range(k - 1)]
     block = max(1024, (EDGE_BLOCK * 16) // max(k, 1))
-    with one_blas_thread():         # small products per block: BLAS threads would only wait for each other
-        _sum_blocks(u, i, j, c, edge_sum, block, groups, pairs_of, w, k, progress)
+    starts = range(0, c.size, block)
+    workers = min(compute_threads(), len(starts))
+    done = [0]
+    lock = threading.Lock()
+
+    def advance(count):
+        if progress:
+            with lock:
+                done[0] += count
+                progress(done[0], c.size)
+
+    def work(share):
+        _sum_blocks(u, i, j, c, edge_sum, block, share, groups, pairs_of, w, k, advance)
+
+    # The edges' blocks are shared among threads, one per core: numpy's gathers, sorts and products
+    # release the GIL, so the cores sum at once (docs/performance.md). Each block's BLAS product runs on
+    # one thread: small products, whose BLAS threads would only wait for each other.
+    with one_blas_thread():
+        if workers < 2:
+            work(starts)
+        else:
+            with ThreadPoolExecutor(workers) as pool:
+                list(pool.map(work, [starts[t::workers] for t in range(workers)]))
     return edge_sum
 
 
-def _sum_blocks(u, i, j, c, edge_sum, block, groups, pairs_of, w, k, progress):
-    """Fill edge_sum (the weighted sum over pairs of |voltage drop| times conductance) block by block."""
+def _sum_blocks(u, i, j, c, edge_sum, block, starts, groups, pairs_of, w, k, advance):
+    """Fill edge_sum (the weighted sum over pairs of |voltage drop| times conductance) on the blocks at ``starts``."""
     # Two (block, k) buffers serve every block: fresh temporaries of this size each cost their page faults.
     here = np.empty((min(block, c.size), k))
     there = np.empty_like(here)
-    for start in range(0, c.size, block):
+    for start in starts:
         stop = min(start + block, c.size)
         drop = np.take(u, i[start:stop], axis=0, out=here[:stop - start])
         np.subtract(drop, np.take(u, j[start:stop], axis=0, out=there[:stop - start]), out=drop)   # (block, k)
@@ -179,8 +203,7 @@ def _sum_blocks(u, i, j, c, edge_sum, block, groups, pairs_of, w, k, progress):
                 if others.size:
                     total += np.abs(drop[:, others] - drop[:, a:a + 1]) @ w[a, others]
         edge_sum[start:stop] = c[start:stop] * total
-        if progress:
-            progress(stop, c.size)
+        advance(stop - start)
 
 
 def _product_groups(component_of_patch, w):
