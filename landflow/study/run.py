@@ -42,6 +42,41 @@ _DEPENDENCIES = ("numpy", "scipy", "pandas", "rasterio", "scikit-image", "pyamg"
                  "geopandas", "pyogrio", "pyproj", "shapely")
 
 
+#: Modules that the stages after the solves import (the maps, the report page's charts and template, the
+#: vector layers): :func:`imported_meanwhile` loads them while a solver works.
+LATER_MODULES = ("matplotlib.figure", "matplotlib.backends.backend_agg", "matplotlib.colors", "matplotlib.ticker",
+                 "matplotlib.patches", "scipy.cluster.hierarchy", "scipy.spatial.distance", "jinja2", "geopandas",
+                 "shapely", "pyogrio", "rasterio.features")
+
+
+@contextmanager
+def imported_meanwhile(modules):
+    """Import ``modules`` on a second thread while the block runs; wait for them on leaving it.
+
+    A factorisation spends seconds in compiled code that releases the GIL (SuperLU, CHOLMOD, Pardiso) on
+    one core, and the imports of the later stages take about a second on the other (matplotlib alone 0.6
+    s, measured on the 1000 x 1000 benchmark). Leaving the block waits for the thread, so that no import
+    is half done when the run imports the same modules itself. A module that fails to import is left
+    for the stage that needs it, which then reports the error.
+    """
+    import importlib
+    import threading
+
+    def load():
+        for name in modules:
+            try:
+                importlib.import_module(name)
+            except Exception:                       # noqa: BLE001 - reported by the stage that imports it
+                log.debug("could not import %s ahead of time", name, exc_info=True)
+
+    thread = threading.Thread(target=load, name="landflow-imports", daemon=True)
+    thread.start()
+    try:
+        yield
+    finally:
+        thread.join()
+
+
 class RunContext:
     """What an analysis step sees: inputs, the graph, shared solves, and an output writer.
 
@@ -195,7 +230,7 @@ class RunContext:
     def _voltages(self):
         from ..analyses.resistance import patch_voltages
         solver = self.study.settings["solver"]
-        with self.timed("solve"):
+        with self.timed("solve"), imported_meanwhile(LATER_MODULES):
             return patch_voltages(self.graph, method=solver["method"], tolerance=solver["tolerance"],
                                   progress=log.info)
 
@@ -242,7 +277,7 @@ class RunContext:
         from ..analyses.absorption import absorbing_walk
         solver = self.study.settings["solver"]
         spec = self.study.settings.get("mortality") or {}
-        with self.forward_warnings():
+        with self.forward_warnings(), imported_meanwhile(LATER_MODULES):
             return absorbing_walk(self.walk_graph, self.mortality, method=solver["method"], tolerance=solver["tolerance"],
                                   source=str(spec.get("raster") or "mortality"), where=self.grid.where)
 

@@ -86,3 +86,16 @@ def test_each_distinct_system_is_factorised_once_and_the_manifest_says_who_share
         "effective_resistance", "current_density"]
     assert by_purpose["absorbing walk (every patch absorbing)"]["used_by"] == [
         "hitting_probability", "absorption_probability", "expected_steps"]
+
+
+def test_later_stages_modules_are_imported_by_the_end_of_a_solve(caplog):
+    # the modules of the maps and the report load on a second thread while a solver works; leaving the
+    # block waits for them, and a module that cannot be imported is left for the stage that needs it
+    import sys
+    from landflow.study.run import imported_meanwhile
+    sys.modules.pop("xml.dom.minidom", None)
+    with caplog.at_level("DEBUG", logger="landflow"):
+        with imported_meanwhile(("landflow_no_such_module", "xml.dom.minidom")):
+            pass
+    assert "xml.dom.minidom" in sys.modules
+    assert "could not import landflow_no_such_module ahead of time" in caplog.text
