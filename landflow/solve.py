@@ -93,12 +93,35 @@ def one_blas_thread():
     return threadpool_limits(limits=1, user_api="blas")
 
 
+#: Environment variable that sets how many threads landflow's own parallel loops use (a whole number >= 1).
+#: Batches and regional runs set it in their worker processes to the cores each worker gets.
+THREADS_VARIABLE = "LANDFLOW_THREADS"
+
+
 def compute_threads():
-    """How many threads landflow's own parallel loops use: the cores this process may run on."""
+    """How many threads landflow's own parallel loops use (SuperLU's solves, the current sum).
+
+    :data:`THREADS_VARIABLE` where it is set to a whole number >= 1, else the cores this process may run on.
+    A value that is not such a number is ignored, with a warning naming it.
+    """
+    value = os.environ.get(THREADS_VARIABLE, "").strip()
+    if value:
+        if value.isdigit() and int(value) >= 1:
+            return int(value)
+        log.warning("%s=%r is not a whole number of threads >= 1; using the cores instead", THREADS_VARIABLE, value)
     try:
         return max(1, len(os.sched_getaffinity(0)))
     except AttributeError:              # pragma: no cover - not on Linux
         return max(1, os.cpu_count() or 1)
+
+
+def cores_per_worker(workers):
+    """The threads each of ``workers`` processes sharing this machine's cores should use: at least 1."""
+    try:
+        cores = len(os.sched_getaffinity(0))
+    except AttributeError:              # pragma: no cover - not on Linux
+        cores = os.cpu_count() or 1
+    return max(1, cores // max(1, int(workers)))
 
 
 _SINGULAR = ("The system is singular: some part of the graph is not tied to a grounded node "

@@ -246,3 +246,30 @@ class _Returns:
         self.column += 1
         kwargs.get("residuals", []).extend([1.0, 0.0])
         return column
+
+
+class TestThreads:
+    def test_the_variable_sets_the_threads_and_a_bad_value_is_named(self, monkeypatch, caplog):
+        monkeypatch.setenv(solve_module.THREADS_VARIABLE, "3")
+        assert solve_module.compute_threads() == 3
+        monkeypatch.setattr(solve_module.os, "sched_getaffinity", lambda pid: {0, 1, 2, 3}, raising=False)
+        for bad in ("0", "two", "-1"):
+            monkeypatch.setenv(solve_module.THREADS_VARIABLE, bad)
+            with caplog.at_level("WARNING", logger="landflow"):
+                assert solve_module.compute_threads() == 4
+            assert f"LANDFLOW_THREADS={bad!r} is not a whole number of threads >= 1" in caplog.text
+        monkeypatch.delenv(solve_module.THREADS_VARIABLE)
+        assert solve_module.compute_threads() == 4
+
+    def test_workers_share_the_cores(self, monkeypatch):
+        monkeypatch.setattr(solve_module.os, "sched_getaffinity", lambda pid: set(range(8)), raising=False)
+        assert [solve_module.cores_per_worker(w) for w in (1, 2, 3, 8, 16)] == [8, 4, 2, 1, 1]
+
+    def test_a_local_batch_worker_uses_its_share(self):
+        # the initializer of the batch's worker processes, run in a process of its own (it installs signal handlers)
+        import subprocess
+        import sys
+        code = ("import os; from landflow.study.batch import _worker_start; _worker_start(3); "
+                "from landflow.solve import compute_threads; print(os.environ['LANDFLOW_THREADS'], compute_threads())")
+        out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=120, check=True)
+        assert out.stdout.split() == ["3", "3"]

@@ -15,6 +15,7 @@ import numpy as np
 from .. import __version__
 from ..errors import ConfigError, InputError
 from ..io.windows import Mosaic, raster_info, read_tile, sample_values
+from ..solve import THREADS_VARIABLE, cores_per_worker
 from ..study.folder import OutputFolder
 from ._config import DEFAULTS, NAME, load_regional_study
 from ._plan import plan_tiles, task_memory_bytes
@@ -183,8 +184,9 @@ def _local_cluster(workers):
     from distributed import Client, LocalCluster
     for name in ("distributed", "tornado", "bokeh"):     # the cluster's own chatter stays off the terminal
         logging.getLogger(name).setLevel(logging.ERROR)
+    # each worker process's own parallel loops get its share of the cores (landflow.solve.compute_threads)
     cluster = LocalCluster(n_workers=workers, threads_per_worker=1, processes=True, dashboard_address=":0",
-                           silence_logs=logging.ERROR)
+                           silence_logs=logging.ERROR, env={THREADS_VARIABLE: str(cores_per_worker(workers))})
     return Client(cluster), cluster
 
 

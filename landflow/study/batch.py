@@ -22,6 +22,7 @@ import pandas as pd
 from .. import __version__
 from ..errors import ConfigError, LandflowError
 from ..io.tables import write_csv
+from ..solve import cores_per_worker
 from .sweep import expand_study, write_sweep_tables
 
 __all__ = ["RunOutcome", "plan_batch", "run_batch", "is_up_to_date", "Progress", "SUMMARY_COLUMNS"]
@@ -281,14 +282,20 @@ def _lost(exc):
             "error": f"the worker running it was lost: {type(exc).__name__}: {exc}"}
 
 
-def _worker_start():
+def _worker_start(threads=None):
     """In each local worker: end with the batch process, and clean up on SIGTERM like a single run.
 
     Linux delivers SIGTERM to the worker when the batch process dies (prctl
     PR_SET_PDEATHSIG); elsewhere a watch thread notices the parent is gone.
+    ``threads``: how many threads the worker's own parallel loops use (its share of the cores, so that
+    the workers together do not ask for more threads than there are cores).
     """
     import signal
     import threading
+
+    from ..solve import THREADS_VARIABLE
+    if threads is not None:
+        os.environ[THREADS_VARIABLE] = str(threads)
 
     def stop(signum, frame):
         raise SystemExit(128 + signum)
@@ -321,7 +328,7 @@ def _run_on_processes(todo, workers, outcomes, progress):
 
     # spawn: a clean interpreter per worker, safe whatever threads this process holds
     with ProcessPoolExecutor(max_workers=workers, mp_context=multiprocessing.get_context("spawn"),
-                             initializer=_worker_start) as pool:
+                             initializer=_worker_start, initargs=(cores_per_worker(workers),)) as pool:
         pending = {pool.submit(execute_run, run.study): run for run in todo}
         try:
             _collect(pending, workers, outcomes, progress, result_of)

@@ -258,3 +258,18 @@ def test_without_dask_the_default_run_solves_here_and_says_so(demo, monkeypatch,
     assert manifest["regional"]["tiles_solved"] == manifest["regional"]["tiles"] == 6     # 2 x 3 tiles of 128
     with pytest.raises(ConfigError, match=r"need dask.distributed; install it with pip install 'landflow\[dask\]'"):
         run_regional(path, workers=2)
+
+
+def test_local_cluster_workers_get_their_share_of_the_cores():
+    # every worker process's own parallel loops (SuperLU's solves, the current sum) use its share of the cores
+    pytest.importorskip("distributed")
+    import os
+    from landflow.regional._run import _local_cluster
+    from landflow.solve import cores_per_worker
+    client, cluster = _local_cluster(2)
+    try:
+        seen = client.run(lambda: os.environ.get("LANDFLOW_THREADS"))
+    finally:
+        client.close()
+        cluster.close()
+    assert sorted(seen.values()) == [str(cores_per_worker(2))] * 2
