@@ -12,9 +12,9 @@ Two backends behind one interface:
     ordering of A^T + A.
   - ``cholmod``: CHOLMOD's supernodal Cholesky factorisation (SuiteSparse)
     through the optional :mod:`cvxopt` package (``pip install landflow[fast]``;
-    cvxopt is GPL-3 licensed, which is why it is optional). Its numeric phase
-    runs on landflow's arrays through the CHOLMOD library cvxopt ships, which
-    spares cvxopt's copies of the matrix (:func:`_cholmod_factor`).
+    cvxopt is GPL-3 licensed, which is why it is optional). Its symbolic and
+    numeric phases run on landflow's arrays through the CHOLMOD library cvxopt
+    ships, which spares cvxopt's copies of the matrix (:func:`_cholmod_factor`).
   - ``pardiso``: Intel MKL Pardiso through the optional :mod:`pypardiso`
     package (``pip install landflow[fast]``, x86-64 only), a multithreaded
     Cholesky-type factorisation with its own nested-dissection ordering.
@@ -454,24 +454,63 @@ def _full_from_lower(lower, ordering=None):
 def _cholmod_factor(lower, *, ordered=False, memory_share=None):
     """CHOLMOD's supernodal Cholesky factor of an SPD matrix, given its lower triangle.
 
-    ``lower`` is the lower triangle from :func:`_lower_csc`. With ``ordered`` its unknowns are already in
-    a fill-reducing order (landflow's nested dissection), which CHOLMOD keeps as it is; otherwise CHOLMOD
-    orders them itself (AMD). Returns the factor (a cvxopt capsule, for :func:`_cholmod_solve`) and its
-    size from the symbolic analysis (:func:`_cholmod_size`). With ``memory_share``, a factor needing more
-    than that share of the memory available after the symbolic analysis raises :class:`_FactorTooLarge`
-    before the numeric phase allocates it. Chen, Davis, Hager & Rajamanickam 2008, "Algorithm 887:
-    CHOLMOD, supernodal sparse Cholesky factorization and update/downdate", ACM TOMS 35:22,
-    doi:10.1145/1391989.1391995.
+    ``lower`` is the lower triangle from :func:`_lower_csc` or :func:`grounded_lower`. With ``ordered`` its
+    unknowns are already in a fill-reducing order (landflow's nested dissection), which CHOLMOD keeps as it
+    is; otherwise CHOLMOD orders them itself (AMD). Returns the factor (a :class:`_Factor`, or where
+    CHOLMOD's C interface cannot be reached a cvxopt capsule) and its size from the symbolic analysis
+    (:func:`_cholmod_size`). With ``memory_share``, a factor needing more than that share of the memory
+    available after the symbolic analysis raises :class:`_FactorTooLarge` before the numeric phase
+    allocates it. Chen, Davis, Hager & Rajamanickam 2008, "Algorithm 887: CHOLMOD, supernodal sparse
+    Cholesky factorization and update/downdate", ACM TOMS 35:22, doi:10.1145/1391989.1391995.
 
-    Memory. The symbolic analysis goes through cvxopt, whose copy of the triangle is dropped as soon as
-    it is done. For the numeric phase cvxopt would pack another copy, and CHOLMOD, given an order other
-    than the natural one, would make two permuted transposes of that (16 bytes per entry each: 2.6 GB
-    at 16 million unknowns, beside a 12 GB factor). So an ordered system is analysed with the identity
-    permutation and no postordering (the nested-dissection order is a postorder of its elimination tree
-    already: the same nonzeros, measured), the factor is marked as being in natural order
-    (:func:`_cholmod_mark_natural`), and the numeric phase runs on ``lower``'s own arrays through
-    CHOLMOD's C interface (:class:`_CholmodLibrary`). Where that library cannot be reached, cvxopt's
-    numeric phase is used, with its copies.
+    Memory and time. Where CHOLMOD's C interface can be reached (:class:`_CholmodLibrary`), both phases
+    run on ``lower``'s own arrays: an ordered system is analysed in CHOLMOD's natural order without
+    postordering (the nested-dissection order is a postorder of its elimination tree already: the same
+    nonzeros, measured), so that neither phase copies, permutes or transposes the matrix. Otherwise both
+    go through cvxopt, which packs copies of the triangle, and CHOLMOD, given an order other than the
+    natural one, makes two permuted transposes of it (16 bytes per entry each: 2.6 GB at 16 million
+    unknowns, beside a 12 GB factor); there an ordered system is analysed with the identity permutation
+    and its factor marked as natural (:func:`_cholmod_mark_natural`) to spare the transposes.
+    """
+    n = lower.shape[0]
+    library = _CholmodLibrary.load()
+    if library is not None:
+        factor = library.analyze(lower, natural=ordered)
+        size = _cholmod_size(factor, n)
+        if ordered and size:
+            size["ordering"] = "given"              # landflow's, which CHOLMOD keeps as it is
+        copies = 0
+    else:
+        factor, system, size, natural = _cvxopt_symbolic(lower, ordered)
+        copies = 1 if natural else 2                 # cvxopt packs a copy; CHOLMOD transposes unless natural
+    if memory_share is not None and "bytes" in size:
+        free = available_memory()
+        need = size["bytes"] + _CHOLMOD_COPY_BYTES * copies * lower.nnz
+        if free is not None and need > memory_share * free:
+            raise _FactorTooLarge(f"the CHOLMOD factor of {n} unknowns needs {size['bytes'] / 1e9:.1f} GB "
+                                  f"and its numeric phase {need / 1e9:.1f} GB, more than {round(100 * memory_share)}% "
+                                  f"of the {free / 1e9:.1f} GB available")
+    if library is not None:
+        minor = library.factorize(lower, factor)
+    else:
+        from cvxopt import cholmod
+
+        try:
+            cholmod.numeric(system, factor)
+            minor = n
+        except ArithmeticError as exc:              # not positive definite: a pivot <= 0
+            minor = exc.args[0] if exc.args else 0
+    if minor < n:
+        raise SolverError(f"direct factorisation (cholmod) failed: the matrix is not positive definite "
+                          f"(pivot {minor}). {_SINGULAR}")
+    return factor, size
+
+
+def _cvxopt_symbolic(lower, ordered):
+    """CHOLMOD's symbolic analysis through cvxopt: (factor capsule, cvxopt's triangle, size, natural).
+
+    With ``ordered`` the identity permutation is given, without postordering, and the factor is then
+    marked as natural (:func:`_cholmod_mark_natural`; ``natural`` says whether that was done).
     """
     from cvxopt import cholmod, matrix as dense
 
@@ -489,32 +528,20 @@ def _cholmod_factor(lower, *, ordered=False, memory_share=None):
         cholmod.options.clear()
         cholmod.options.update(saved)
     size = _cholmod_size(factor, n)
-    natural = ordered and _cholmod_mark_natural(factor, n)
-    library = _CholmodLibrary.load()
-    if library is not None:
-        del system                                   # the numeric phase reads lower's arrays in place
-        copies = 0
-    else:                                            # cvxopt packs a copy; CHOLMOD transposes unless natural
-        copies = 1 if natural else 2
-    if memory_share is not None and "bytes" in size:
-        free = available_memory()
-        need = size["bytes"] + _CHOLMOD_COPY_BYTES * copies * lower.nnz
-        if free is not None and need > memory_share * free:
-            raise _FactorTooLarge(f"the CHOLMOD factor of {n} unknowns needs {size['bytes'] / 1e9:.1f} GB "
-                                  f"and its numeric phase {need / 1e9:.1f} GB, more than {round(100 * memory_share)}% "
-                                  f"of the {free / 1e9:.1f} GB available")
-    if library is not None:
-        minor = library.factorize(lower, factor)
-    else:
-        try:
-            cholmod.numeric(system, factor)
-            minor = n
-        except ArithmeticError as exc:              # not positive definite: a pivot <= 0
-            minor = exc.args[0] if exc.args else 0
-    if minor < n:
-        raise SolverError(f"direct factorisation (cholmod) failed: the matrix is not positive definite "
-                          f"(pivot {minor}). {_SINGULAR}")
-    return factor, size
+    return factor, system, size, ordered and _cholmod_mark_natural(factor, n)
+
+
+class _Factor:
+    """A ``cholmod_factor`` made by :meth:`_CholmodLibrary.analyze`, freed with it when this object goes."""
+
+    def __init__(self, library, address):
+        import weakref
+
+        self.address = address
+        self._free = weakref.finalize(self, library.free_factor, address)
+
+    def free(self):
+        self._free()
 
 
 def grounded_lower(adjacency, diagonal, nodes):
@@ -628,7 +655,7 @@ def _cholmod_solve(factor, b):
 
 
 def _factor_struct(factor, n):
-    """The address of the ``cholmod_factor`` a cvxopt capsule holds, and its index type, or None.
+    """The address of the ``cholmod_factor`` a :class:`_Factor` or a cvxopt capsule holds, and its index type.
 
     cvxopt gives no access to the factor's fields, so they are read with ctypes. Their leading fields
     have kept their layout since CHOLMOD 1.0: n, minor, Perm, ColCount, IPerm, nzmax, p, i, x, z, nz,
@@ -638,14 +665,17 @@ def _factor_struct(factor, n):
     """
     import ctypes
 
-    try:
-        name = ctypes.pythonapi.PyCapsule_GetName
-        name.restype, name.argtypes = ctypes.c_char_p, [ctypes.py_object]
-        pointer = ctypes.pythonapi.PyCapsule_GetPointer
-        pointer.restype, pointer.argtypes = ctypes.c_void_p, [ctypes.py_object, ctypes.c_char_p]
-        address = pointer(factor, name(factor))
-    except (AttributeError, ValueError, TypeError, OSError):
-        return None
+    if isinstance(factor, _Factor):
+        address = factor.address
+    else:
+        try:
+            name = ctypes.pythonapi.PyCapsule_GetName
+            name.restype, name.argtypes = ctypes.c_char_p, [ctypes.py_object]
+            pointer = ctypes.pythonapi.PyCapsule_GetPointer
+            pointer.restype, pointer.argtypes = ctypes.c_void_p, [ctypes.py_object, ctypes.c_char_p]
+            address = pointer(factor, name(factor))
+        except (AttributeError, ValueError, TypeError, OSError):
+            return None
     size_t = ctypes.sizeof(ctypes.c_size_t)
     flags = (ctypes.c_int * 5).from_address(address + 22 * size_t)
     is_super, itype = flags[2], flags[4]
@@ -719,28 +749,39 @@ def _cholmod_mark_natural(factor, n):
 class _CholmodLibrary:
     """CHOLMOD's own C functions, from the library cvxopt's extension loads, called with ctypes.
 
-    cvxopt's numeric phase copies the matrix into a packed triangle of its own; calling
-    ``cholmod_l_factorize`` directly on a ``cholmod_sparse`` whose arrays are numpy's spares that copy
-    (1.3 GB at 16 million unknowns). Only the structures whose layout CHOLMOD has kept since version 1.0
-    are used: ``cholmod_sparse`` is filled here, the ``cholmod_factor`` comes from cvxopt's symbolic
-    analysis, and a ``cholmod_common`` is started by ``cholmod_l_start`` in a buffer larger than the
-    structure. Its leading fields are checked against CHOLMOD's documented defaults before its ``print``
-    level is set to 0 (no messages on standard output); any mismatch, a missing library or a missing
-    function and :meth:`load` returns None, so that cvxopt's numeric phase is used instead.
+    cvxopt's symbolic and numeric phases copy the matrix into triangles of their own; calling
+    ``cholmod_l_analyze`` and ``cholmod_l_factorize`` directly on a ``cholmod_sparse`` whose arrays are
+    numpy's spares those copies (1.3 GB each at 16 million unknowns, and 0.4 s of the 1 s symbolic phase
+    at 1 million). Only the structures whose layout CHOLMOD has kept since version 1.0 are read or
+    filled: ``cholmod_sparse`` is filled here, the ``cholmod_factor`` made by ``cholmod_l_analyze`` is read
+    for its size and freed by :class:`_Factor`, and a ``cholmod_common`` is started by ``cholmod_l_start``
+    in a buffer larger than the structure. Every field of it that is set (the print level, the ordering
+    methods, postordering) and its neighbours are checked against CHOLMOD's documented defaults first
+    (:meth:`_defaults_as_expected`); any mismatch, a missing library or a missing function and
+    :meth:`load` returns None, so that cvxopt's own phases are used instead.
     """
 
     _COMMON_BYTES = 1 << 16             # more than sizeof(cholmod_common) in CHOLMOD 3 to 5 (about 2.3 kB)
     _PRINT_OFFSET = 144                 # Common->print, after the fields checked in _defaults_as_expected
+    _SUPERNODAL_OFFSET = 48             # Common->supernodal, the first of the ints checked in _defaults_as_expected
+    _NMETHODS_OFFSET = 168              # Common->nmethods, then current, selected and method[0 .. 9]
+    _METHOD_OFFSET, _METHOD_BYTES = 184, 168
+    _ORDERING_IN_METHOD = 132           # method[i].ordering, the last of its six ints
+    _POSTORDER_OFFSET = 184 + 10 * 168  # Common->postorder, after the ten methods
     _instance = False                   # not looked for yet
 
     def __init__(self, lib):
         import ctypes
 
         self._lib = lib
-        for name in ("cholmod_l_start", "cholmod_l_finish", "cholmod_l_factorize", "cholmod_l_free_dense"):
+        for name in ("cholmod_l_start", "cholmod_l_finish", "cholmod_l_factorize", "cholmod_l_free_dense",
+                     "cholmod_l_free_factor"):
             getattr(lib, name).restype = ctypes.c_int
         lib.cholmod_l_start.argtypes = lib.cholmod_l_finish.argtypes = [ctypes.c_void_p]
         lib.cholmod_l_factorize.argtypes = [ctypes.c_void_p, ctypes.c_void_p, ctypes.c_void_p]
+        lib.cholmod_l_analyze.restype = ctypes.c_void_p
+        lib.cholmod_l_analyze.argtypes = [ctypes.c_void_p, ctypes.c_void_p]
+        lib.cholmod_l_free_factor.argtypes = [ctypes.c_void_p, ctypes.c_void_p]
         lib.cholmod_l_solve.restype = ctypes.c_void_p
         lib.cholmod_l_solve.argtypes = [ctypes.c_int, ctypes.c_void_p, ctypes.c_void_p, ctypes.c_void_p]
         lib.cholmod_l_free_dense.argtypes = [ctypes.c_void_p, ctypes.c_void_p]
@@ -805,7 +846,13 @@ class _CholmodLibrary:
         return common
 
     def _defaults_as_expected(self):
-        """Whether a started Common holds CHOLMOD's defaults where this class expects them."""
+        """Whether a started Common holds CHOLMOD's defaults where this class expects them.
+
+        Checked: the growth and supernodal settings, the print level, the number of ordering methods, the
+        orderings of the first five methods (given, AMD, METIS, nested dissection, natural) with two of
+        the first method's parameters, and postordering: each field this class reads or sets, and its
+        neighbours, at the offset CHOLMOD 3 to 5 put it.
+        """
         try:
             common = self._start()
         except OSError:
@@ -818,12 +865,68 @@ class _CholmodLibrary:
         expected = (doubles[[0, 1, 2, 5]].tolist() == [0.0, 1.2, 1.2, 40.0] and sizes.tolist() == [5, 8]
                     and ints.tolist() == [1, 1, 1, 0, 1, 1, 0] and relax[0].tolist() == [0.8, 0.1, 0.05]
                     and relax[1].tolist() == [4, 16, 48]
-                    and np.frombuffer(raw, np.int32, 1, self._PRINT_OFFSET)[0] == 3)
+                    and np.frombuffer(raw, np.int32, 1, self._PRINT_OFFSET)[0] == 3
+                    and np.frombuffer(raw, np.int32, 1, self._NMETHODS_OFFSET)[0] == 0
+                    and [np.frombuffer(raw, np.int32, 1, self._METHOD_OFFSET + m * self._METHOD_BYTES
+                                       + self._ORDERING_IN_METHOD)[0] for m in range(5)] == [1, 2, 3, 4, 0]
+                    and np.frombuffer(raw, np.float64, 1, self._METHOD_OFFSET + 16)[0] == 10.0     # prune_dense
+                    and np.frombuffer(raw, np.uint64, 1, self._METHOD_OFFSET + 72)[0] == 200       # nd_small
+                    and np.frombuffer(raw, np.int32, 1, self._POSTORDER_OFFSET)[0] == 1)
         self._lib.cholmod_l_finish(common)
         return expected
 
+    def _sparse_of(self, lower):
+        """A ``cholmod_sparse`` lower triangle (CHOLMOD_LONG, real) on ``lower``'s arrays, and those arrays."""
+        n = lower.shape[0]
+        arrays = [np.ascontiguousarray(a, dtype=t) for a, t in
+                  ((lower.indptr, np.int64), (lower.indices, np.int64), (lower.data, np.float64))]
+        indptr, indices, data = arrays
+        matrix = self._sparse(nrow=n, ncol=n, nzmax=data.size, p=indptr.ctypes.data, i=indices.ctypes.data,
+                              nz=None, x=data.ctypes.data, z=None, stype=-1, itype=2, xtype=1, dtype=0,
+                              sorted=1, packed=1)
+        return matrix, arrays
+
+    def analyze(self, lower, *, natural):
+        """CHOLMOD's symbolic analysis of ``lower`` (on its own arrays): a :class:`_Factor`.
+
+        With ``natural``, the unknowns' own order without postordering (the caller's fill-reducing
+        order); otherwise CHOLMOD's default choice of ordering.
+        """
+        import ctypes
+
+        matrix, arrays = self._sparse_of(lower)
+        common = self._start()
+        base = ctypes.addressof(common)
+        ctypes.c_int.from_address(base + self._PRINT_OFFSET).value = 0
+        # supernodal whatever the size, as cvxopt asks too: a simplicial factor of a small system would be
+        # LDL', which factorises a matrix that is not positive definite without complaint
+        ctypes.c_int.from_address(base + self._SUPERNODAL_OFFSET).value = 2      # CHOLMOD_SUPERNODAL
+        if natural:
+            ctypes.c_int.from_address(base + self._NMETHODS_OFFSET).value = 1
+            ctypes.c_int.from_address(base + self._METHOD_OFFSET + self._ORDERING_IN_METHOD).value = 0  # NATURAL
+            ctypes.c_int.from_address(base + self._POSTORDER_OFFSET).value = 0
+        try:
+            address = self._lib.cholmod_l_analyze(ctypes.byref(matrix), common)
+        finally:
+            self._lib.cholmod_l_finish(common)
+        del arrays
+        if not address:
+            raise SolverError("direct factorisation (cholmod) failed: CHOLMOD's symbolic analysis ran out of "
+                              "memory; use solver method 'multigrid' for a system this large.")
+        return _Factor(self, address)
+
+    def free_factor(self, address):
+        """Free a ``cholmod_factor`` made by :meth:`analyze`."""
+        import ctypes
+
+        common = self._start()
+        try:
+            self._lib.cholmod_l_free_factor(ctypes.byref(ctypes.c_void_p(address)), common)
+        finally:
+            self._lib.cholmod_l_finish(common)
+
     def factorize(self, lower, factor):
-        """The numeric phase into ``factor`` (cvxopt's symbolic factor) from ``lower``'s own arrays.
+        """The numeric phase into ``factor`` (a symbolic factor) from ``lower``'s own arrays.
 
         Returns CHOLMOD's ``minor``: n when the matrix is positive definite, else the failing column.
         """
@@ -835,11 +938,7 @@ class _CholmodLibrary:
             raise SolverError("direct factorisation (cholmod): the symbolic factor is not CHOLMOD's "
                               "long-integer kind that landflow expects; use solver method 'superlu'.")
         address = found[0]
-        indptr, indices, data = (np.ascontiguousarray(a, dtype=t) for a, t in
-                                 ((lower.indptr, np.int64), (lower.indices, np.int64), (lower.data, np.float64)))
-        matrix = self._sparse(nrow=n, ncol=n, nzmax=data.size, p=indptr.ctypes.data, i=indices.ctypes.data,
-                              nz=None, x=data.ctypes.data, z=None, stype=-1, itype=2, xtype=1, dtype=0,
-                              sorted=1, packed=1)       # lower triangle, CHOLMOD_LONG, CHOLMOD_REAL, double
+        matrix, arrays = self._sparse_of(lower)
         common = self._start()
         ctypes.c_int.from_address(ctypes.addressof(common) + self._PRINT_OFFSET).value = 0
         try:
