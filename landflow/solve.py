@@ -538,10 +538,7 @@ class _Factor:
         import weakref
 
         self.address = address
-        self._free = weakref.finalize(self, library.free_factor, address)
-
-    def free(self):
-        self._free()
+        weakref.finalize(self, library.free_factor, address)
 
 
 def grounded_lower(adjacency, diagonal, nodes):

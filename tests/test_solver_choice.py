@@ -176,6 +176,22 @@ class TestBackendsAgree:
             np.testing.assert_allclose(through_cvxopt[key], direct[key], rtol=1e-12, atol=1e-15)
 
     @pytest.mark.skipif(not HAVE_CHOLMOD, reason="cvxopt (CHOLMOD, the 'fast' extra) is not installed")
+    def test_a_factor_analysed_on_landflow_arrays_is_freed_with_its_solver(self, monkeypatch):
+        library = solve._CholmodLibrary.load()
+        if library is None:
+            pytest.skip("CHOLMOD's C interface is not reachable here")
+        freed = []
+        real = solve._CholmodLibrary.free_factor
+        monkeypatch.setattr(solve._CholmodLibrary, "free_factor",
+                            lambda self, address: (freed.append(address), real(self, address)))
+        graph = lognormal_graph(20, 20, [(1, 1), (18, 18)], seed=4)
+        solver = solve.factorize(graph.laplacian()[1:, 1:], method="cholmod")
+        address = solver._factor.address
+        assert solver.record()["factor_supernodes"] >= 1        # supernodal (LL'), as asked
+        solver.release()
+        assert freed == [address]
+
+    @pytest.mark.skipif(not HAVE_CHOLMOD, reason="cvxopt (CHOLMOD, the 'fast' extra) is not installed")
     def test_only_an_identity_permutation_is_marked_natural(self):
         from cvxopt import cholmod, matrix as dense
         graph = lognormal_graph(12, 10, [(1, 1), (10, 8)], seed=3)
