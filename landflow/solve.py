@@ -98,17 +98,23 @@ def one_blas_thread():
 THREADS_VARIABLE = "LANDFLOW_THREADS"
 
 
+_WARNED_THREADS = set()
+
+
 def compute_threads():
     """How many threads landflow's own parallel loops use (SuperLU's solves, the current sum).
 
     :data:`THREADS_VARIABLE` where it is set to a whole number >= 1, else the cores this process may run on.
-    A value that is not such a number is ignored, with a warning naming it.
+    A value that is not such a number is ignored, with a warning naming it (once per value).
     """
     value = os.environ.get(THREADS_VARIABLE, "").strip()
     if value:
         if value.isdigit() and int(value) >= 1:
             return int(value)
-        log.warning("%s=%r is not a whole number of threads >= 1; using the cores instead", THREADS_VARIABLE, value)
+        if value not in _WARNED_THREADS:            # once per value, not at every parallel loop
+            _WARNED_THREADS.add(value)
+            log.warning("%s=%r is not a whole number of threads >= 1; using the cores instead. Set it to 1, "
+                        "2, ... or unset it.", THREADS_VARIABLE, value)
     try:
         return max(1, len(os.sched_getaffinity(0)))
     except AttributeError:              # pragma: no cover - not on Linux
