@@ -115,19 +115,20 @@ def compute_threads():
             _WARNED_THREADS.add(value)
             log.warning("%s=%r is not a whole number of threads >= 1; using the cores instead. Set it to 1, "
                         "2, ... or unset it.", THREADS_VARIABLE, value)
-    try:
-        return max(1, len(os.sched_getaffinity(0)))
-    except AttributeError:              # pragma: no cover - not on Linux
-        return max(1, os.cpu_count() or 1)
+    return _cores()
 
 
 def cores_per_worker(workers):
     """The threads each of ``workers`` processes sharing this machine's cores should use: at least 1."""
+    return max(1, _cores() // max(1, int(workers)))
+
+
+def _cores():
+    """The cores this process may run on (at least 1)."""
     try:
-        cores = len(os.sched_getaffinity(0))
+        return max(1, len(os.sched_getaffinity(0)))
     except AttributeError:              # pragma: no cover - not on Linux
-        cores = os.cpu_count() or 1
-    return max(1, cores // max(1, int(workers)))
+        return max(1, os.cpu_count() or 1)
 
 
 _SINGULAR = ("The system is singular: some part of the graph is not tied to a grounded node "

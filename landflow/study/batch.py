@@ -22,7 +22,7 @@ import pandas as pd
 from .. import __version__
 from ..errors import ConfigError, LandflowError
 from ..io.tables import write_csv
-from ..solve import cores_per_worker
+from ..solve import THREADS_VARIABLE, cores_per_worker
 from .sweep import expand_study, write_sweep_tables
 
 __all__ = ["RunOutcome", "plan_batch", "run_batch", "is_up_to_date", "Progress", "SUMMARY_COLUMNS"]
@@ -293,7 +293,6 @@ def _worker_start(threads=None):
     import signal
     import threading
 
-    from ..solve import THREADS_VARIABLE
     if threads is not None:
         os.environ[THREADS_VARIABLE] = str(threads)
 
