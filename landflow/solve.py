@@ -35,6 +35,7 @@ keeps the worst one and raises :class:`SolverError` past its tolerance.
 from __future__ import annotations
 
 import contextlib
+import contextvars
 import importlib.util
 import logging
 import os
@@ -52,7 +53,8 @@ from .errors import SolverError
 log = logging.getLogger("landflow")
 
 __all__ = ["factorize", "Solver", "METHODS", "DIRECT_MAX_UNKNOWNS", "DIRECT_ALWAYS_UNKNOWNS", "DIRECT_MIN_RHS",
-           "choose_method", "direct_engine", "factor_bytes", "available_memory", "grounded_lower", "grounded_matrix"]
+           "choose_method", "direct_engine", "factor_bytes", "available_memory", "grounded_lower", "grounded_matrix",
+           "when_engine_starts"]
 
 METHODS = ("auto", "direct", "multigrid", "superlu", "pardiso", "cholmod")
 
@@ -75,6 +77,35 @@ DIRECT_MIN_RHS = 5
 
 #: Relative residual a direct solve may show before it counts as failed.
 DIRECT_RESIDUAL_LIMIT = 1e-6
+
+
+#: What to call when the next direct factorisation of this context hands over to its compiled engine
+#: (:func:`when_engine_starts`).
+_ENGINE_STARTING = contextvars.ContextVar("landflow_engine_starting", default=None)
+
+
+@contextlib.contextmanager
+def when_engine_starts(start):
+    """Call ``start()`` once, when a direct factorisation inside the block hands over to its engine.
+
+    SuperLU, CHOLMOD (through its C interface) and Pardiso then spend seconds in compiled code that
+    releases the GIL and keeps one core busy: the moment for other work on a second thread, which before
+    it would contend with the numpy work that builds the system. Not called when no direct engine runs
+    (multigrid); once at most, on the thread (context) that entered the block.
+    """
+    token = _ENGINE_STARTING.set(start)
+    try:
+        yield
+    finally:
+        _ENGINE_STARTING.reset(token)
+
+
+def _engine_starting():
+    """Hand the engine's start to whoever asked for it with :func:`when_engine_starts` (once)."""
+    start = _ENGINE_STARTING.get()
+    if start is not None:
+        _ENGINE_STARTING.set(None)
+        start()
 
 
 def one_blas_thread():
@@ -292,6 +323,7 @@ class Solver:
                 spec = "NATURAL"
             else:
                 permuted, spec = _symmetric_csc(matrix), "MMD_AT_PLUS_A"
+            _engine_starting()
             try:
                 self._lu = sla.splu(permuted, permc_spec=spec,
                                     diag_pivot_thresh=0.0, options={"SymmetricMode": True})
@@ -308,6 +340,7 @@ class Solver:
             self._pardiso.set_statistical_info_off()
             self._upper = sp.triu(sp.csr_matrix(matrix), format="csr")
             self._upper.sort_indices()
+            _engine_starting()
             try:
                 self._pardiso.factorize(self._upper)
             except Exception as exc:  # pypardiso raises its own error class on a failed phase
@@ -481,6 +514,7 @@ def _cholmod_factor(lower, *, ordered=False, memory_share=None):
     """
     n = lower.shape[0]
     library = _CholmodLibrary.load()
+    _engine_starting()
     if library is not None:
         factor = library.analyze(lower, natural=ordered)
         size = _cholmod_size(factor, n)

@@ -70,6 +70,20 @@ class TestBackendsAgree:
         assert sorted(seen) == sorted(parts)
         np.testing.assert_array_equal(shared, alone)
 
+    @pytest.mark.parametrize("method", [m for m in ("superlu", "cholmod", "pardiso") if solve_module._installed(m)]
+                             + ["multigrid"])
+    def test_the_engines_start_is_announced_once_to_whoever_asked(self, grounded, method):
+        # when_engine_starts calls its function as a direct engine takes over (once, however many
+        # factorisations follow in the block), and never for multigrid, whose set-up holds the GIL
+        calls = []
+        with solve_module.when_engine_starts(lambda: calls.append(1)):
+            assert calls == []
+            factorize(grounded, method=method)
+            factorize(grounded, method=method)
+        assert calls == ([] if method == "multigrid" else [1])
+        factorize(grounded, method=method)          # outside the block nobody is told
+        assert len(calls) <= 1
+
     def test_auto_picks_direct_up_to_the_limit(self, grounded):
         assert choose_method(DIRECT_MAX_UNKNOWNS, n_rhs=DIRECT_MIN_RHS, engine="superlu") == "direct"
         assert choose_method(DIRECT_MAX_UNKNOWNS + 1, n_rhs=DIRECT_MIN_RHS, engine="superlu") == "multigrid"

@@ -51,16 +51,20 @@ LATER_MODULES = ("matplotlib.figure", "matplotlib.backends.backend_agg", "matplo
 
 @contextmanager
 def imported_meanwhile(modules):
-    """Import ``modules`` on a second thread while the block runs; wait for them on leaving it.
+    """Import ``modules`` on a second thread while a direct engine factorises in the block.
 
     A factorisation spends seconds in compiled code that releases the GIL (SuperLU, CHOLMOD, Pardiso) on
     one core, and the imports of the later stages take about a second on the other (matplotlib alone 0.6
-    s, measured on the 1000 x 1000 benchmark). Leaving the block waits for the thread, so that no import
-    is half done when the run imports the same modules itself. A module that fails to import is left
-    for the stage that needs it, which then reports the error.
+    s, measured on the 1000 x 1000 benchmark). The thread starts when the engine takes over
+    (:func:`landflow.solve.when_engine_starts`), not before: the numpy work that builds the system would
+    share the GIL with it. Leaving the block waits for the thread, so that no import is half done when the
+    run imports the same modules itself. A module that fails to import is left for the stage that needs
+    it, which then reports the error. Without a direct factorisation (multigrid) nothing is imported ahead.
     """
     import importlib
     import threading
+
+    from ..solve import when_engine_starts
 
     def load():
         for name in modules:
@@ -70,11 +74,12 @@ def imported_meanwhile(modules):
                 log.debug("could not import %s ahead of time", name, exc_info=True)
 
     thread = threading.Thread(target=load, name="landflow-imports", daemon=True)
-    thread.start()
     try:
-        yield
+        with when_engine_starts(thread.start):
+            yield
     finally:
-        thread.join()
+        if thread.ident is not None:
+            thread.join()
 
 
 class RunContext:

@@ -88,14 +88,26 @@ def test_each_distinct_system_is_factorised_once_and_the_manifest_says_who_share
         "hitting_probability", "absorption_probability", "expected_steps"]
 
 
-def test_later_stages_modules_are_imported_by_the_end_of_a_solve(caplog):
-    # the modules of the maps and the report load on a second thread while a solver works; leaving the
-    # block waits for them, and a module that cannot be imported is left for the stage that needs it
+def test_later_stages_modules_are_imported_while_an_engine_factorises(caplog):
+    # the modules of the maps and the report load on a second thread once a direct engine takes over
+    # (not before: the system's numpy work would share the GIL with them); leaving the block waits for
+    # them, a module that cannot be imported is left for the stage that needs it, and without a direct
+    # factorisation nothing is imported ahead
     import sys
+
+    import scipy.sparse as sp
+
+    from landflow.solve import factorize
     from landflow.study.run import imported_meanwhile
+    system = sp.csr_array(sp.diags_array([[-1.0] * 3, [3.0] * 4, [-1.0] * 3], offsets=[-1, 0, 1]))
     sys.modules.pop("xml.dom.minidom", None)
     with caplog.at_level("DEBUG", logger="landflow"):
         with imported_meanwhile(("landflow_no_such_module", "xml.dom.minidom")):
-            pass
+            assert "xml.dom.minidom" not in sys.modules
+            factorize(system, method="superlu")
     assert "xml.dom.minidom" in sys.modules
     assert "could not import landflow_no_such_module ahead of time" in caplog.text
+    sys.modules.pop("xml.dom.minidom")
+    with imported_meanwhile(("xml.dom.minidom",)):
+        pass
+    assert "xml.dom.minidom" not in sys.modules
