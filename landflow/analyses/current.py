@@ -186,13 +186,12 @@ def _edge_sums(voltages, w, i, j, c, *, progress=None):
 
 def _sum_blocks(u, i, j, c, edge_sum, block, starts, groups, pairs_of, w, k, advance):
     """Fill edge_sum (the weighted sum over pairs of |voltage drop| times conductance) on the blocks at ``starts``."""
-    # Two (block, k) buffers serve every block: fresh temporaries of this size each cost their page faults.
-    here = np.empty((min(block, c.size), k))
-    there = np.empty_like(here)
     for start in starts:
         stop = min(start + block, c.size)
-        drop = np.take(u, i[start:stop], axis=0, out=here[:stop - start])
-        np.subtract(drop, np.take(u, j[start:stop], axis=0, out=there[:stop - start]), out=drop)   # (block, k)
+        # Rows gathered into fresh arrays: numpy's take into a given ``out`` took twice as long (0.93 s against
+        # 0.43 s for the 4 million edges of the 1000 x 1000 benchmark, one thread, same run).
+        drop = u.take(i[start:stop], axis=0)
+        drop -= u.take(j[start:stop], axis=0)                                       # (block, k)
         total = np.zeros(stop - start)
         if groups is not None:
             for members, weight in groups:
