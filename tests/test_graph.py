@@ -102,3 +102,30 @@ def test_transform_with_zero_cell_size_is_refused():
     with pytest.raises(lf.InputError, match=r"array: the transform gives cells of 0 x 1 map units; cell width and "
                                             r"height must be finite and non-zero"):
         lf.Grid(np.ones((2, 2)), np.ones((2, 2), bool), Affine(0, 0, 0, 0, -1, 0))
+
+
+@pytest.mark.parametrize("seed", range(4))
+def test_component_labels_are_scipys_undirected_ones(seed):
+    # strong components of the symmetric matrix, renumbered by first node, are scipy's undirected labelling
+    # (which numbers pieces in the order of their first node) and networkx's pieces
+    import networkx as nx
+    import scipy.sparse as sp
+    from scipy.sparse.csgraph import connected_components
+    rng = np.random.default_rng(seed)
+    values = rng.lognormal(size=(40, 50))
+    values[rng.random(values.shape) < 0.62] = np.nan         # past the 8-neighbour percolation threshold: many pieces
+    graph = lf.build_graph(lf.Grid.from_array(values))
+    labels = graph.components
+    count, expected = connected_components(graph.conductance, directed=False)
+    assert count > 20
+    np.testing.assert_array_equal(labels, expected)
+    assert labels.dtype == expected.dtype
+    pieces = nx.connected_components(nx.from_scipy_sparse_array(sp.csr_array(graph.conductance)))
+    assert sorted(sorted(p) for p in pieces) == sorted(np.flatnonzero(labels == c).tolist() for c in range(count))
+
+
+def test_patch_nodes_keep_their_label_order_and_free_cells_their_cell_order():
+    labels = np.array([[0, 9, 0, 2], [2, 0, 0, 9], [0, 4, 0, 0]])
+    graph = lf.build_graph(lf.Grid.from_array(np.ones(labels.shape)), labels)
+    np.testing.assert_array_equal(graph.patch_ids, [2, 4, 9])
+    np.testing.assert_array_equal(graph.node_of_cell, [[3, 2, 4, 0], [0, 5, 6, 2], [7, 1, 8, 9]])
