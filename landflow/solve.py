@@ -606,34 +606,76 @@ def grounded_matrix(adjacency, diagonal, nodes, *, lower=False):
     n = nodes.size
     position = np.full(adjacency.shape[0], -1, dtype=np.int64)     # -1: grounded
     position[nodes] = np.arange(n)
-    rows = adjacency[nodes]                                         # row j is node nodes[j]
-    columns = position[rows.indices]
-    del position
-    if lower:
-        kept = columns > np.repeat(np.arange(n, dtype=np.int64), np.diff(rows.indptr))
-    else:
-        kept = columns >= 0
-    before = np.zeros(rows.nnz + 1, dtype=np.int64)
-    np.cumsum(kept, out=before[1:])
-    indptr = np.arange(n + 1, dtype=np.int64)                       # one diagonal entry per column ...
-    indptr += before[rows.indptr]                                   # ... and the kept entries before it
-    del before
-    off = np.ones(indptr[-1], dtype=bool)
-    off[indptr[:-1]] = False
-    indices = np.empty(indptr[-1], dtype=np.int64 if lower else adjacency.indices.dtype)
+    index_type = np.int64 if lower else adjacency.indices.dtype
+    # Bands of unknowns (columns of the result) are made on one thread per core: numpy's gathers, masks
+    # and sums release the GIL. Each band is the whole-matrix algorithm on its columns, written into its
+    # own slice of the result, so the result does not depend on the bands (tested).
+    count = max(1, min(compute_threads(), adjacency.nnz // GROUNDED_BAND_MIN_ENTRIES))
+    bounds = np.linspace(0, n, count + 1).astype(np.int64)
+
+    def select(lo, hi):
+        """The band's rows, their entries' unknowns, which entries are kept, and the band's own indptr."""
+        rows = adjacency[nodes[lo:hi]]                              # row j is node nodes[j]
+        columns = position[rows.indices]
+        if lower:
+            kept = columns > np.repeat(np.arange(lo, hi, dtype=np.int64), np.diff(rows.indptr))
+        else:
+            kept = columns >= 0
+        before = np.zeros(rows.nnz + 1, dtype=np.int64)
+        np.cumsum(kept, out=before[1:])
+        local = np.arange(hi - lo + 1, dtype=np.int64)              # one diagonal entry per column ...
+        local += before[rows.indptr]                                # ... and the kept entries before it
+        return rows, columns, kept, local
+
+    bands = _on_threads(select, bounds[:-1], bounds[1:])
+    indptr = np.empty(n + 1, dtype=np.int64)
+    indptr[0] = 0
+    for lo, hi, (_, _, _, local) in zip(bounds[:-1], bounds[1:], bands):
+        indptr[lo + 1:hi + 1] = local[1:] + indptr[lo]
+    indices = np.empty(indptr[-1], dtype=index_type)
     data = np.empty(indptr[-1], dtype=np.float64)
-    indices[indptr[:-1]] = np.arange(n)
-    data[indptr[:-1]] = diagonal[nodes]
-    indices[off] = columns[kept]
-    del columns
-    data[off] = rows.data[kept]
-    np.negative(data, out=data, where=off)
-    del rows, kept, off
+
+    def fill(lo, hi, band):
+        rows, columns, kept, local = band
+        first, last = indptr[lo], indptr[hi]
+        out_indices, out_data = indices[first:last], data[first:last]
+        off = np.ones(last - first, dtype=bool)
+        off[local[:-1]] = False
+        out_indices[local[:-1]] = np.arange(lo, hi)
+        out_data[local[:-1]] = diagonal[nodes[lo:hi]]
+        out_indices[off] = columns[kept]
+        out_data[off] = rows.data[kept]
+        np.negative(out_data, out=out_data, where=off)
+        band.clear()
+        # each column's entries sorted (rows for the whole matrix, CSR); scipy may or may not copy the
+        # slices into the matrix it sorts, so the sorted arrays are written back either way
+        view = (sp.csc_array if lower else sp.csr_array)((out_data, out_indices, local),
+                                                         shape=(n, hi - lo) if lower else (hi - lo, n))
+        view.sort_indices()
+        out_indices[...], out_data[...] = view.indices, view.data
+
+    bands = [list(band) for band in bands]
+    _on_threads(fill, bounds[:-1], bounds[1:], bands)
+    del bands, position
     if not lower:
         indptr = indptr.astype(indices.dtype)
     matrix = (sp.csc_array if lower else sp.csr_array)((data, indices, indptr), shape=(n, n))
-    matrix.sort_indices()
+    matrix.has_sorted_indices = True
     return matrix
+
+
+#: Below this many stored entries of the graph, :func:`grounded_matrix` makes its system on one thread.
+GROUNDED_BAND_MIN_ENTRIES = 1 << 20
+
+
+def _on_threads(function, *arguments):
+    """``[function(*a) for a in zip(*arguments)]``, the calls shared among threads (one when there is one)."""
+    calls = list(zip(*arguments))
+    if len(calls) < 2:
+        return [function(*call) for call in calls]
+    from concurrent.futures import ThreadPoolExecutor
+    with ThreadPoolExecutor(len(calls)) as pool:
+        return list(pool.map(lambda call: function(*call), calls))
 
 
 def _lower_csc(matrix, ordering=None):

@@ -106,8 +106,15 @@ def graph():
 class TestLowerTriangle:
     """factorize's ``lower``: the system as the lower triangle that CHOLMOD reads, made from a graph."""
 
-    def test_whole_matrix_equals_scipys_grounded_submatrix(self, graph):
-        # against scipy's own indexing of L[nodes][:, nodes], in a shuffled elimination order
+    @pytest.fixture(params=[1, 2, 3], ids=["one band", "two bands", "three bands"])
+    def bands(self, request, monkeypatch):
+        """The system made in this many bands of unknowns, one thread each."""
+        monkeypatch.setattr(solve_module, "compute_threads", lambda: request.param)
+        monkeypatch.setattr(solve_module, "GROUNDED_BAND_MIN_ENTRIES", 1)
+        return request.param
+
+    def test_whole_matrix_equals_scipys_grounded_submatrix(self, graph, bands):
+        # against scipy's own indexing of L[nodes][:, nodes], in a shuffled elimination order, made in bands
         nodes = np.random.default_rng(3).permutation(np.arange(1, graph.n_nodes))
         matrix = solve_module.grounded_matrix(graph.conductance, graph.total_conductance, nodes)
         expected = sp.csr_array(graph.laplacian()[nodes][:, nodes])
@@ -117,8 +124,8 @@ class TestLowerTriangle:
         np.testing.assert_array_equal(matrix.indices, expected.indices)
         np.testing.assert_array_equal(matrix.data, expected.data)
 
-    def test_equals_scipys_lower_triangle_of_the_grounded_submatrix(self, graph):
-        # against scipy's own indexing and tril of L[nodes][:, nodes], in a shuffled elimination order
+    def test_equals_scipys_lower_triangle_of_the_grounded_submatrix(self, graph, bands):
+        # against scipy's own indexing and tril of L[nodes][:, nodes], in a shuffled elimination order, in bands
         nodes = np.random.default_rng(1).permutation(np.arange(1, graph.n_nodes))
         lower = solve_module.grounded_lower(graph.conductance, graph.total_conductance, nodes)
         expected = sp.csc_array(sp.tril(graph.laplacian()[nodes][:, nodes]))
