@@ -390,6 +390,22 @@ def test_right_hand_sides_in_blocks_give_the_same_voltages(monkeypatch):
     np.testing.assert_array_equal(blocked, whole)
 
 
+@pytest.mark.parametrize("columns, unknowns, sizes", [
+    (19, 10**6, [19]),                            # 16 columns a block; 3 more do not cost a pass of their own
+    (24, 10**6, [12, 12]),                        # half a block more: two even blocks
+    (49, 4 * 10**6, [4] * 6 + [5] + [4] * 5),     # 4 a block: twelve, evened out
+    (9, 16 * 10**6, [1] * 9),
+    (3, 10, [3]),
+])
+def test_right_hand_sides_are_shared_into_even_blocks(columns, unknowns, sizes):
+    from landflow.analyses.resistance import RHS_BLOCK_VALUES, rhs_blocks
+    blocks = rhs_blocks(columns, unknowns)
+    assert [stop - first for first, stop in blocks] == sizes
+    assert blocks[0][0] == 0 and blocks[-1][1] == columns
+    assert all(a[1] == b[0] for a, b in zip(blocks, blocks[1:]))
+    assert all(stop - first <= 1.5 * max(1, RHS_BLOCK_VALUES // unknowns) for first, stop in blocks)
+
+
 def set_aside_every_factor(monkeypatch, graph):
     """Make every direct factor count as filling the memory, so that ``graph``'s matrix goes to disk.
 

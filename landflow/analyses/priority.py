@@ -14,7 +14,7 @@ import pandas as pd
 from ..errors import InputError
 from ..graph import cell_edges
 from .current import current_density, pair_current, pair_weights
-from .resistance import RHS_BLOCK_VALUES, _symmetric_submatrix, effective_resistance
+from .resistance import _symmetric_submatrix, effective_resistance, rhs_blocks
 
 __all__ = [
     "pair_nodes", "check_connected_pairs", "objective_weights", "connectivity", "link_conductance", "corridor_ranking",
@@ -551,9 +551,8 @@ def edge_loss(voltages, weights, edges, *, method="auto", tolerance=1e-8):
         position[keep] = np.arange(keep.size)
         solver = factorize(_symmetric_submatrix(laplacian, keep), method=method, tolerance=tolerance,
                            n_rhs=these.size)
-        width = max(1, RHS_BLOCK_VALUES // max(keep.size, 1))
-        for first in range(0, these.size, width):
-            block = these[first:first + width]
+        for first, stop in rhs_blocks(these.size, keep.size):
+            block = these[first:stop]
             rhs = np.zeros((keep.size, block.size))
             cols = np.arange(block.size)
             on_x, on_y = position[i[block]] >= 0, position[j[block]] >= 0
