@@ -136,3 +136,20 @@ def test_write_cog_writes_whole_numbers_without_a_float_predictor(tmp_path):
         assert src.overviews(1) == [2] and src.transform == transform
         np.testing.assert_array_equal(src.read(1), labels)
         assert set(np.unique(src.read(1, out_shape=(150, 135)))) <= set(range(7))   # nearest: no new classes
+
+
+def test_cog_blocks_compressed_on_several_threads_give_the_same_file(tmp_path, monkeypatch):
+    # GDAL compresses a COG's blocks on landflow's threads; the file does not depend on how many
+    from landflow import solve
+    values = np.random.default_rng(4).lognormal(size=(600, 700)).astype(np.float32)
+    values[:50, :80] = np.nan
+    transform = Affine(25.0, 0, 4_000_000.0, 0, -25.0, 3_000_000.0)
+    written = []
+    for threads in (1, 3):
+        monkeypatch.setattr(solve, "compute_threads", lambda threads=threads: threads)
+        path = tmp_path / f"threads{threads}.tif"
+        rasters.write_cog(path, values, transform=transform, crs="EPSG:3035", description="current")
+        written.append(path.read_bytes())
+    assert written[0] == written[1]
+    with rasterio.open(tmp_path / "threads3.tif") as src:
+        np.testing.assert_array_equal(src.read(1, masked=True).filled(np.nan), values)
