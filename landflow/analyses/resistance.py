@@ -15,8 +15,8 @@ import scipy.sparse as sp
 
 from ..errors import InputError
 from ..graph import nested_dissection_order
-from ..solve import (available_memory, choose_method, direct_engine, factor_bytes, factorize, grounded_lower,
-                     grounded_matrix)
+from ..solve import (available_memory, choose_method, compute_threads, direct_engine, factor_bytes, factorize,
+                     grounded_lower, grounded_matrix)
 
 log = logging.getLogger("landflow")
 
@@ -274,16 +274,45 @@ def _worst_residual(graph, potential, ground, sources, columns):
     Column j is the grounded solution for a unit current into node ``sources[j]``, zero at ``ground`` and
     outside its component, so its residual over the unknowns, ``||e_source - L_g x||``, is that of
     ``L x - e_source`` on every node but the ground, with L = diag(C) - A the whole graph's Laplacian (the
-    component's other rows are the unknowns'; rows elsewhere are 0). One sparse product serves the block,
-    on the potentials as stored: no gathered copy in the engine's order is made. The right-hand sides
-    have norm 1, so the residuals are relative.
+    component's other rows are the unknowns'; rows elsewhere are 0). Sparse products on bands of rows serve
+    the block, on the potentials as stored: no gathered copy in the engine's order is made. The
+    right-hand sides have norm 1, so the residuals are relative.
     """
-    x = potential[:, columns]
-    r = graph.conductance @ x
-    np.subtract(graph.total_conductance[:, None] * x, r, out=r)
-    r[ground] = 0.0
-    r[sources, np.arange(len(sources))] -= 1.0
-    return float(np.sqrt(np.einsum("ij,ij->j", r, r)).max())
+    x = np.ascontiguousarray(potential[:, columns])      # one copy: scipy's product would make one per call
+    adjacency, diagonal = graph.conductance, graph.total_conductance
+    n = x.shape[0]
+    sources = np.asarray(sources)
+
+    def band(lo):
+        """The squared residual of every column over the rows lo .. lo + RESIDUAL_ROWS - 1."""
+        hi = min(lo + RESIDUAL_ROWS, n)
+        first, last = adjacency.indptr[lo], adjacency.indptr[hi]
+        rows = sp.csr_array((adjacency.data[first:last], adjacency.indices[first:last],
+                             adjacency.indptr[lo:hi + 1] - first), shape=(hi - lo, n))
+        r = rows @ x
+        np.subtract(diagonal[lo:hi, None] * x[lo:hi], r, out=r)
+        if lo <= ground < hi:
+            r[ground - lo] = 0.0
+        here = np.flatnonzero((sources >= lo) & (sources < hi))
+        r[sources[here] - lo, here] -= 1.0
+        return np.einsum("ij,ij->j", r, r)
+
+    # Bands of rows small enough that their temporaries are reused from one band to the next, shared among
+    # one thread per core (scipy's sparse products and numpy's sums release the GIL): no temporary of the
+    # block's size is made, whose pages would each fault on first use after the factorisation.
+    starts = range(0, n, RESIDUAL_ROWS)
+    threads = max(1, min(compute_threads(), len(starts)))
+    if threads < 2:
+        squares = sum(map(band, starts))
+    else:
+        from concurrent.futures import ThreadPoolExecutor
+        with ThreadPoolExecutor(threads) as pool:
+            squares = sum(pool.map(lambda share: sum(map(band, share)), [starts[t::threads] for t in range(threads)]))
+    return float(np.sqrt(squares).max())
+
+
+#: Rows per band of the residual check (:func:`_worst_residual`).
+RESIDUAL_ROWS = 1 << 15
 
 
 def _unit_currents(n, positions):

@@ -86,3 +86,30 @@ def test_isolated_patch_escapes_with_probability_zero():
     assert np.isinf(isolated.resistance).all() and np.isinf(isolated.commute_time).all()
     assert (isolated.escape_probability_a_to_b == 0).all() and (isolated.escape_probability_b_to_a == 0).all()
     assert not table.isna().any().any()
+
+
+@pytest.mark.parametrize("threads, rows", [(1, 10**6), (1, 37), (3, 37), (2, 500)])
+def test_residual_check_on_bands_of_rows_is_the_norm_of_the_laplacian_residual(threads, rows, monkeypatch):
+    # _worst_residual sums squared residuals band by band on several threads; against the residual
+    # formed whole with the Laplacian, max_j ||L x_j - e_source_j|| off the ground node, for potentials
+    # perturbed so that the residuals are far from zero
+    from landflow.analyses import resistance
+    values = np.random.default_rng(11).lognormal(size=(25, 30))
+    labels = np.zeros(values.shape, dtype=np.int64)
+    labels[2, 3], labels[20, 25], labels[12, 5], labels[4, 27] = 1, 2, 3, 4
+    graph = lf.build_graph(lf.Grid.from_array(values), labels)
+    voltages = lf.patch_voltages(graph, method="superlu")
+    potential = voltages.potential + np.random.default_rng(3).normal(scale=1e-3, size=voltages.potential.shape)
+    monkeypatch.setattr(resistance, "compute_threads", lambda: threads)
+    monkeypatch.setattr(resistance, "RESIDUAL_ROWS", rows)
+    sources, columns = np.array([1, 3]), np.array([1, 3])
+    got = resistance._worst_residual(graph, potential, 0, sources, columns)
+    laplacian = graph.laplacian().toarray()
+    worst = 0.0
+    for source, column in zip(sources, columns):
+        r = laplacian @ potential[:, column]
+        r[source] -= 1.0
+        r[0] = 0.0
+        worst = max(worst, np.linalg.norm(r))
+    assert worst > 1e-3
+    assert got == pytest.approx(worst, rel=1e-12)
