@@ -13,8 +13,10 @@ from ..solve import compute_threads, one_blas_thread
 __all__ = ["edge_current", "pair_current", "current_density", "edge_current_density", "pair_weights"]
 
 #: Sets the edges handled at once when summing over pairs: EDGE_BLOCK * 16 / k
-#: edges, so each (edges x k) temporary holds about 4 M numbers (32 MB) whatever k.
-EDGE_BLOCK = 262_144
+#: edges, so each (edges x k) temporary holds about 64 k numbers (0.5 MB) whatever k: small enough to stay
+#: in the cache and to be reused from the heap block after block, where temporaries of 32 MB each took
+#: fresh pages (0.62 s against 0.42 s for the 1000 x 1000 benchmark's 4 million edges and 20 patches).
+EDGE_BLOCK = 4096
 
 
 def edge_current(graph, voltage):
@@ -99,7 +101,7 @@ def current_density(voltages, weights=None, *, progress=None):
     Notes
     -----
     Cost: O(edges * k log k) with product-form weights, O(edges * k^2 / 2)
-    otherwise; a few temporaries of EDGE_BLOCK * 16 numbers each (32 MB).
+    otherwise; a few temporaries of EDGE_BLOCK * 16 numbers each (0.5 MB).
     """
     graph = voltages.graph
     k = graph.n_patches
