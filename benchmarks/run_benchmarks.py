@@ -450,15 +450,20 @@ def machine():
             versions += f", {package} {version(package)}"
         except PackageNotFoundError:
             pass
-    return f"{cpu}, {os.cpu_count()} cores, {mem:.0f} GB RAM, {platform.system()} {platform.release()}; {versions}"
+    return f"{cpu}, {os.cpu_count()} cores, {mem:.0f} GiB RAM, {platform.system()} {platform.release()}; {versions}"
 
 
 def _fmt_s(x):
     return "-" if x is None else (f"{x:,.0f} s" if x >= 100 else f"{x:.1f} s")
 
 
+def _gb(mib):
+    """Decimal gigabytes (10^9 bytes, as the targets and the factor sizes count them) from MiB of peak RSS."""
+    return mib * 1024 * 1024 / 1e9
+
+
 def _fmt_mb(x):
-    return "-" if x is None else f"{x / 1024:.2f} GB"
+    return "-" if x is None else f"{_gb(x):.2f} GB"
 
 
 def case_table(r):
@@ -606,7 +611,7 @@ def targets_table(results):
     add("4000 x 4000, 10 patches: <= 5 minutes with the `fast` extra",
         "not measured" if wall is None else f"{wall:.0f} s ({engine})", None if wall is None else wall <= 300)
     add("4000 x 4000, 10 patches: <= 16 GB with the `fast` extra",
-        "not measured" if peak is None else f"{peak / 1024:.1f} GB", None if peak is None else peak / 1024 <= 16)
+        "not measured" if peak is None else f"{_gb(peak):.1f} GB", None if peak is None else _gb(peak) <= 16)
     return ["### Targets", "", "From the tables above (each ratio within one run of the script).", "",
             "| target | measured | met | note |", "|---|---|---|---|"] + rows + [""]
 
