@@ -625,9 +625,9 @@ def grounded_matrix(adjacency, diagonal, nodes, *, lower=False):
         np.cumsum(kept, out=before[1:])
         local = np.arange(hi - lo + 1, dtype=np.int64)              # one diagonal entry per column ...
         local += before[rows.indptr]                                # ... and the kept entries before it
-        return rows, columns, kept, local
+        return [rows, columns, kept, local]        # a list: fill empties it, so each band's arrays go with it
 
-    bands = _on_threads(select, bounds[:-1], bounds[1:])
+    bands = on_threads(select, bounds[:-1], bounds[1:])
     indptr = np.empty(n + 1, dtype=np.int64)
     indptr[0] = 0
     for lo, hi, (_, _, _, local) in zip(bounds[:-1], bounds[1:], bands):
@@ -654,8 +654,7 @@ def grounded_matrix(adjacency, diagonal, nodes, *, lower=False):
         view.sort_indices()
         out_indices[...], out_data[...] = view.indices, view.data
 
-    bands = [list(band) for band in bands]
-    _on_threads(fill, bounds[:-1], bounds[1:], bands)
+    on_threads(fill, bounds[:-1], bounds[1:], bands)
     del bands, position
     if not lower:
         indptr = indptr.astype(indices.dtype)
@@ -668,8 +667,12 @@ def grounded_matrix(adjacency, diagonal, nodes, *, lower=False):
 GROUNDED_BAND_MIN_ENTRIES = 1 << 20
 
 
-def _on_threads(function, *arguments):
-    """``[function(*a) for a in zip(*arguments)]``, the calls shared among threads (one when there is one)."""
+def on_threads(function, *arguments):
+    """``[function(*a) for a in zip(*arguments)]``, each call on a thread of its own (none for a single call).
+
+    landflow's parallel loops (SuperLU's solves, the grounded system, the residual checks, the current sum)
+    share their work into one call per thread with this; the calls must release the GIL to gain.
+    """
     calls = list(zip(*arguments))
     if len(calls) < 2:
         return [function(*call) for call in calls]
@@ -1090,12 +1093,7 @@ def _solve_in_parts(solve, b):
     bounds[-1] = m
     parts = [slice(lo, hi) for lo, hi in zip(bounds[:-1], bounds[1:]) if hi > lo]
     x = np.empty(b2.shape, order="F")
-    if len(parts) < 2:
-        solve(b2, x)
-    else:
-        from concurrent.futures import ThreadPoolExecutor
-        with ThreadPoolExecutor(len(parts)) as pool:
-            list(pool.map(lambda part: solve(b2[:, part], x[:, part]), parts))
+    on_threads(lambda part: solve(b2[:, part], x[:, part]), parts)
     return x.reshape(b.shape)
 
 

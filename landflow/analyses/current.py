@@ -3,12 +3,11 @@
 from __future__ import annotations
 
 import threading
-from concurrent.futures import ThreadPoolExecutor
 
 import numpy as np
 
 from ..errors import InputError
-from ..solve import compute_threads, one_blas_thread
+from ..solve import compute_threads, on_threads, one_blas_thread
 
 __all__ = ["edge_current", "pair_current", "current_density", "edge_current_density", "pair_weights"]
 
@@ -161,7 +160,7 @@ def _edge_sums(voltages, w, i, j, c, *, progress=None):
     pairs_of = [(a, np.flatnonzero(w[a, a + 1:]) + a + 1) for a in range(k - 1)]
     block = max(1024, (EDGE_BLOCK * 16) // max(k, 1))
     starts = range(0, c.size, block)
-    workers = min(compute_threads(), len(starts))
+    workers = max(1, min(compute_threads(), len(starts)))
     done = [0]
     lock = threading.Lock()
 
@@ -178,11 +177,7 @@ def _edge_sums(voltages, w, i, j, c, *, progress=None):
     # release the GIL, so the cores sum at once (docs/performance.md). Each block's BLAS product runs on
     # one thread: small products, whose BLAS threads would only wait for each other.
     with one_blas_thread():
-        if workers < 2:
-            work(starts)
-        else:
-            with ThreadPoolExecutor(workers) as pool:
-                list(pool.map(work, [starts[t::workers] for t in range(workers)]))
+        on_threads(work, [starts[t::workers] for t in range(workers)])
     return edge_sum
 
 

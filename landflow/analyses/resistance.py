@@ -16,7 +16,7 @@ import scipy.sparse as sp
 from ..errors import InputError
 from ..graph import nested_dissection_order
 from ..solve import (available_memory, choose_method, compute_threads, direct_engine, factor_bytes, factorize,
-                     grounded_lower, grounded_matrix)
+                     grounded_lower, grounded_matrix, on_threads)
 
 log = logging.getLogger("landflow")
 
@@ -302,12 +302,7 @@ def _worst_residual(graph, potential, ground, sources, columns):
     # block's size is made, whose pages would each fault on first use after the factorisation.
     starts = range(0, n, RESIDUAL_ROWS)
     threads = max(1, min(compute_threads(), len(starts)))
-    if threads < 2:
-        squares = sum(map(band, starts))
-    else:
-        from concurrent.futures import ThreadPoolExecutor
-        with ThreadPoolExecutor(threads) as pool:
-            squares = sum(pool.map(lambda share: sum(map(band, share)), [starts[t::threads] for t in range(threads)]))
+    squares = sum(on_threads(lambda share: sum(map(band, share)), [starts[t::threads] for t in range(threads)]))
     return float(np.sqrt(squares).max())
 
 
